@@ -1,0 +1,441 @@
+"""The robot description file: load, validate, and derive the figures in force.
+
+Values are SI floats once loaded. Positions are ``[x, y, z]`` in the body frame
+(x forward, y left, z up) measured from the centre of the axle.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import numpy as np
+import yaml
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+
+from .inertia import MassProperties, box_inertia, combine, cylinder_inertia_y
+from .units import STANDARD_GRAVITY, UnitError, to_si
+
+
+class RobotFileError(ValueError):
+    """A robot description with one or more problems, one line each."""
+
+    def __init__(self, source: str, problems: list[str]):
+        self.source = source
+        self.problems = problems
+        super().__init__("\n".join(f"{source}: {p}" for p in problems))
+
+
+def _si(kind: str):
+    def convert(value: object) -> float:
+        try:
+            return to_si(value, kind)
+        except UnitError as err:
+            raise ValueError(str(err)) from None
+
+    return BeforeValidator(convert)
+
+
+Length = Annotated[float, _si("length")]
+Mass = Annotated[float, _si("mass")]
+Voltage = Annotated[float, _si("voltage")]
+Current = Annotated[float, _si("current")]
+Resistance = Annotated[float, _si("resistance")]
+Torque = Annotated[float, _si("torque")]
+AngularSpeed = Annotated[float, _si("angular_speed")]
+Frequency = Annotated[float, _si("frequency")]
+Time = Annotated[float, _si("time")]
+Acceleration = Annotated[float, _si("acceleration")]
+Inertia = Annotated[float, _si("inertia")]
+Charge = Annotated[float, _si("charge")]
+Fraction = Annotated[float, _si("fraction")]
+GyroDensity = Annotated[float, _si("gyro_density")]
+AccelDensity = Annotated[float, _si("accel_density")]
+GyroWalk = Annotated[float, _si("gyro_walk")]
+AccelWalk = Annotated[float, _si("accel_walk")]
+Position = tuple[Length, Length, Length]
+PositiveSize = tuple[
+    Annotated[Length, Field(gt=0)], Annotated[Length, Field(gt=0)], Annotated[Length, Field(gt=0)]
+]
+
+
+class Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class Frame(Section):
+    """The main chassis box: sides along x (depth), y (width), z (height)."""
+
+    depth: Length = Field(gt=0)
+    width: Length = Field(gt=0)
+    height: Length = Field(gt=0)
+    mass: Mass = Field(gt=0)
+    bottom: Length = 0.0  # z of the underside relative to the axle
+
+
+class Part(Section):
+    """A solid box fixed to the body (battery, board, payload deck...)."""
+
+    name: str = Field(min_length=1)
+    mass: Mass = Field(gt=0)
+    size: PositiveSize
+    at: Position = (0.0, 0.0, 0.0)
+    colour: str | None = Field(default=None, pattern=r"^#[0-9a-fA-F]{6}$")
+
+
+class Body(Section):
+    frame: Frame
+    parts: list[Part] = []
+
+
+class Wheels(Section):
+    radius: Length = Field(gt=0, le=1.0)
+    width: Length = Field(gt=0)
+    mass: Mass = Field(gt=0)
+    track: Length = Field(gt=0)  # distance between the two wheel centres
+    friction: float = Field(default=0.9, gt=0, le=3.0)
+    rolling_resistance: float = Field(default=0.0, ge=0, le=0.2)  # rolling friction coefficient
+
+
+class Motors(Section):
+    """Per-motor catalogue figures at the gearbox output shaft."""
+
+    rated_voltage: Voltage = Field(default=6.0, gt=0)
+    no_load_speed: AngularSpeed = Field(default=to_si("250 rpm", "angular_speed"), gt=0)
+    stall_torque: Torque = Field(default=to_si("1.5 kgf*cm", "torque"), gt=0)
+    stall_current: Current = Field(default=1.6, gt=0)
+    gear_ratio: float = Field(default=48.0, ge=1.0)
+    rotor_inertia: Inertia = Field(default=1.0e-7, ge=0)  # at the motor shaft
+    friction_torque: Torque = Field(default=0.005, ge=0)  # Coulomb, at the output shaft
+
+
+class Driver(Section):
+    """The H-bridge: voltage lost across it, PWM resolution, deadband, zero-duty behaviour."""
+
+    voltage_drop: Voltage = Field(default=1.8, ge=0)
+    pwm_bits: int = Field(default=8, ge=1, le=16)
+    deadband: Fraction = Field(default=0.0, ge=0, lt=1)
+    off_state: Literal["brake", "coast"] = "brake"
+
+
+class Battery(Section):
+    cells: int = Field(default=6, ge=1, le=48)
+    cell_voltage: Voltage = Field(default=1.2, gt=0, le=5.0)  # nominal, per cell
+    cell_resistance: Resistance = Field(default=0.03, ge=0)
+    capacity: Charge = Field(default=to_si("2000 mAh", "charge"), gt=0)
+    charge: Fraction = Field(default=0.8, ge=0, le=1)  # state of charge at the start
+
+
+class Gyro(Section):
+    range: AngularSpeed = Field(default=to_si("250 deg/s", "angular_speed"), gt=0)
+    noise_density: GyroDensity = Field(default=to_si("0.005 deg/s/sqrt(Hz)", "gyro_density"), ge=0)
+    bias: AngularSpeed = Field(default=to_si("0.5 deg/s", "angular_speed"), ge=0)
+    bias_walk: GyroWalk = Field(default=0.0, ge=0)
+    bits: int = Field(default=16, ge=4, le=32)
+
+
+class Accel(Section):
+    range: Acceleration = Field(default=2 * STANDARD_GRAVITY, gt=0)
+    noise_density: AccelDensity = Field(default=0.0002 * STANDARD_GRAVITY, ge=0)
+    bias: Acceleration = Field(default=0.02, ge=0)
+    bias_walk: AccelWalk = Field(default=0.0, ge=0)
+    bits: int = Field(default=16, ge=4, le=32)
+
+
+class Imu(Section):
+    at: Position = (0.0, 0.0, 0.05)
+    rate: Frequency = Field(default=1000.0, gt=0, le=100_000)
+    latency: Time = Field(default=0.0, ge=0, le=1.0)
+    gyro: Gyro = Gyro()
+    accel: Accel = Accel()
+
+
+class Encoders(Section):
+    counts_per_rev: int = Field(default=360, ge=1)  # per motor-shaft turn
+
+
+class RobotSpec(Section):
+    """A validated robot description, every value in SI."""
+
+    name: str = Field(default="robot", min_length=1, pattern=r"^[A-Za-z0-9_.-][A-Za-z0-9 _.-]*$")
+    body: Body
+    wheels: Wheels
+    motors: Motors = Motors()
+    driver: Driver = Driver()
+    battery: Battery = Battery()
+    imu: Imu = Imu()
+    encoders: Encoders = Encoders()
+
+    @model_validator(mode="after")
+    def _above_ground(self) -> RobotSpec:
+        ground = -self.wheels.radius
+        frame = self.body.frame
+        if frame.bottom <= ground:
+            raise ValueError(
+                f"body.frame.bottom {frame.bottom * 1000:g} mm puts the frame into the ground: "
+                f"it must be above -{self.wheels.radius * 1000:g} mm (minus the wheel radius)"
+            )
+        for i, part in enumerate(self.body.parts):
+            low = part.at[2] - part.size[2] / 2
+            if low <= ground:
+                raise ValueError(
+                    f"body.parts[{i}] ({part.name}) reaches {low * 1000:g} mm, into the ground: "
+                    f"its underside must be above -{self.wheels.radius * 1000:g} mm"
+                )
+        if self.battery_voltage <= self.driver.voltage_drop:
+            raise ValueError(
+                f"driver.voltage_drop {self.driver.voltage_drop:g} V leaves nothing of the "
+                f"battery's {self.battery_voltage:g} V for the motors"
+            )
+        return self
+
+    @property
+    def battery_voltage(self) -> float:
+        """Nominal battery voltage (V): cells × cell voltage."""
+        return self.battery.cells * self.battery.cell_voltage
+
+    @cached_property
+    def figures(self) -> Figures:
+        return derive(self)
+
+    def to_si_dict(self) -> dict[str, Any]:
+        """The description with every value in SI, plain Python types (for run.yaml)."""
+        return self.model_dump(mode="json")
+
+
+# --------------------------------------------------------------------- loading
+
+
+def load_robot(path: str | Path, overrides: dict[str, Any] | None = None) -> RobotSpec:
+    """Read, override and validate a robot file. Raises RobotFileError."""
+    path = Path(path)
+    source = str(path)
+    if not path.is_file():
+        raise RobotFileError(source, ["no such file"])
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise RobotFileError(source, [f"cannot read the file: {err}"]) from None
+    data = parse_yaml(text, source)
+    if isinstance(data, dict) and "name" not in data:
+        data["name"] = path.stem
+    return robot_from_dict(data, source, overrides)
+
+
+def parse_yaml(text: str, source: str) -> Any:
+    """YAML text to Python data; a syntax error names the line and column."""
+    try:
+        return yaml.safe_load(text)
+    except yaml.YAMLError as err:
+        mark = getattr(err, "problem_mark", None)
+        where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
+        problem = getattr(err, "problem", None) or str(err).splitlines()[0]
+        raise RobotFileError(source, [f"{where}YAML syntax error: {problem}"]) from None
+
+
+def robot_from_dict(
+    data: Any, source: str = "<robot>", overrides: dict[str, Any] | None = None
+) -> RobotSpec:
+    """Validate plain data (as read from YAML) into a RobotSpec."""
+    if not isinstance(data, dict):
+        raise RobotFileError(source, ["the file must be a mapping of sections (name, body, ...)"])
+    if overrides:
+        data = apply_overrides(data, overrides, source)
+    try:
+        return RobotSpec.model_validate(data)
+    except ValidationError as err:
+        raise RobotFileError(source, [_describe_error(e) for e in err.errors()]) from None
+
+
+def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:
+    """Return a copy of ``data`` with dotted keys set (``wheels.friction``, ``body.parts.0.mass``)."""
+    import copy
+
+    data = copy.deepcopy(data)
+    problems = []
+    for dotted, value in overrides.items():
+        keys = dotted.split(".")
+        node: Any = data
+        try:
+            for key in keys[:-1]:
+                node = node[int(key)] if isinstance(node, list) else node.setdefault(key, {})
+            if isinstance(node, list):
+                node[int(keys[-1])] = value
+            elif isinstance(node, dict):
+                node[keys[-1]] = value
+            else:
+                raise TypeError
+        except (ValueError, IndexError, TypeError, AttributeError):
+            problems.append(f"{dotted}: cannot set this key (no such place in the description)")
+    if problems:
+        raise RobotFileError(source, problems)
+    return data
+
+
+def _describe_error(err: dict) -> str:
+    loc = err.get("loc", ())
+    key = _dotted(loc)
+    kind = err.get("type", "")
+    if kind == "extra_forbidden":
+        parent = loc[:-1]
+        known = _fields_at(parent)
+        hint = nearest_key(str(loc[-1]), known)
+        allowed = f"did you mean '{hint}'?" if hint else "allowed: " + ", ".join(known)
+        return f"{key}: unknown key ({allowed})"
+    if kind == "missing":
+        return f"{key}: missing (required)"
+    message = err.get("msg", "")
+    if message.startswith("Value error, "):
+        message = message[len("Value error, ") :]
+    message = message[:1].lower() + message[1:]
+    shown = err.get("input")
+    if kind in {"greater_than", "greater_than_equal", "less_than", "less_than_equal"}:
+        message = f"{message} (got {shown!r}, in SI units)"
+    elif kind == "literal_error":
+        message = f"{message} (got {shown!r})"
+    if not key:
+        return message
+    return f"{key}: {message}"
+
+
+def nearest_key(word: str, known: list[str]) -> str | None:
+    """The known key closest to a mistyped one, or None; swapped letters count as close."""
+
+    def score(candidate: str) -> float:
+        ratio = difflib.SequenceMatcher(None, word.lower(), candidate.lower()).ratio()
+        return ratio + (0.2 if sorted(word.lower()) == sorted(candidate.lower()) else 0.0)
+
+    best = max(known, key=score, default=None)
+    return best if best is not None and score(best) >= 0.6 else None
+
+
+def _dotted(loc: tuple) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+def _fields_at(loc: tuple) -> list[str]:
+    """Field names of the section at ``loc`` (for 'did you mean')."""
+    model: Any = RobotSpec
+    for part in loc:
+        if isinstance(part, int):
+            continue
+        field = model.model_fields.get(part)
+        if field is None:
+            return []
+        annotation = field.annotation
+        inner = getattr(annotation, "__args__", None)
+        if inner:  # list[Part]
+            annotation = inner[0]
+        if not (isinstance(annotation, type) and issubclass(annotation, BaseModel)):
+            return []
+        model = annotation
+    return list(model.model_fields)
+
+
+# --------------------------------------------------------------------- figures
+
+PALETTE = ["#4c72b0", "#dd8452", "#55a868", "#c44e52", "#8172b3", "#937860", "#da8bc3"]
+FRAME_COLOUR = "#9aa3ad"
+WHEEL_COLOUR = "#2b2b2b"
+
+
+@dataclass(frozen=True)
+class Box:
+    """A solid box of the body, placed in the body frame (m, kg)."""
+
+    name: str
+    mass: float
+    size: tuple[float, float, float]
+    at: tuple[float, float, float]
+    colour: str
+
+
+@dataclass(frozen=True)
+class Figures:
+    """Derived figures of a robot, SI units.
+
+    Body figures exclude the wheels; the body's inertia is about its own centre
+    of mass. Motor constants are at the gearbox output shaft, per motor.
+    """
+
+    boxes: tuple[Box, ...]
+    body: MassProperties
+    wheel_mass: float
+    wheel_inertia: np.ndarray  # one wheel about its own centre, axle along y
+    mass: float
+    com: np.ndarray
+    resistance: float  # ohm
+    torque_constant: float  # N·m/A at the output shaft
+    back_emf_constant: float  # V·s/rad at the output shaft
+    reflected_inertia: float  # kg·m², rotor inertia × gear ratio², felt at the wheel
+    battery_voltage: float  # nominal, V
+    drive_voltage: float  # battery nominal minus the driver's drop, V
+    stall_torque_wheel: float  # N·m per wheel at rated voltage
+    available_stall_torque: float  # N·m per wheel at drive_voltage
+    top_speed: float  # m/s, no-load wheel speed at drive_voltage
+    com_height: float  # body centre of mass above the axle, m
+    steepest_hold_tilt: float  # rad; tilt at which both motors at stall just hold the body
+
+    @property
+    def wheel_inertia_axle(self) -> float:
+        return float(self.wheel_inertia[1, 1])
+
+
+def frame_box(spec: RobotSpec) -> Box:
+    f = spec.body.frame
+    return Box("frame", f.mass, (f.depth, f.width, f.height), (0.0, 0.0, f.bottom + f.height / 2),
+               FRAME_COLOUR)
+
+
+def derive(spec: RobotSpec) -> Figures:
+    """All derived figures of a validated description."""
+    boxes = [frame_box(spec)]
+    for i, part in enumerate(spec.body.parts):
+        boxes.append(Box(part.name, part.mass, tuple(part.size), tuple(part.at),
+                         part.colour or PALETTE[i % len(PALETTE)]))
+    body = combine(MassProperties(b.mass, np.array(b.at), box_inertia(b.mass, b.size)) for b in boxes)
+
+    w = spec.wheels
+    wheel_inertia = cylinder_inertia_y(w.mass, w.radius, w.width)
+    mass = body.mass + 2 * w.mass
+    com = body.com * body.mass / mass  # wheel centres sit at ±track/2 on the axle: x = z = 0
+
+    m = spec.motors
+    resistance = m.rated_voltage / m.stall_current
+    torque_constant = m.stall_torque / m.stall_current
+    back_emf_constant = m.rated_voltage / m.no_load_speed
+    drive_voltage = spec.battery_voltage - spec.driver.voltage_drop
+    available = torque_constant * drive_voltage / resistance
+    com_height = float(math.hypot(body.com[0], body.com[2]))
+    lean_torque = body.mass * STANDARD_GRAVITY * com_height
+    ratio = 2 * available / lean_torque if lean_torque > 0 else math.inf
+    steepest = math.pi / 2 if ratio >= 1 else math.asin(ratio)
+    return Figures(
+        boxes=tuple(boxes),
+        body=body,
+        wheel_mass=w.mass,
+        wheel_inertia=wheel_inertia,
+        mass=mass,
+        com=com,
+        resistance=resistance,
+        torque_constant=torque_constant,
+        back_emf_constant=back_emf_constant,
+        reflected_inertia=m.rotor_inertia * m.gear_ratio**2,
+        battery_voltage=spec.battery_voltage,
+        drive_voltage=drive_voltage,
+        stall_torque_wheel=m.stall_torque,
+        available_stall_torque=available,
+        top_speed=drive_voltage / back_emf_constant * w.radius,
+        com_height=com_height,
+        steepest_hold_tilt=steepest,
+    )
