@@ -1,0 +1,364 @@
+"""IMU and wheel-encoder models: true kinematics in, noisy quantised readings out.
+
+The runner computes the true angular rate (rad/s) and the true specific force
+(m/s², see :func:`specific_force`) at the sensor, both in the sensor frame
+(sensor axes = body axes: x forward, y left, z up), and asks :class:`Imu` for
+the readings. Each axis of each sensor gets, in this order:
+
+1. **Turn-on bias** ``b0``: drawn once from the seed, normal with standard
+   deviation ``bias``; constant for the run.
+2. **Bias random walk** (IEEE Std 952 rate random walk, coefficient K =
+   ``bias_walk``, units rad/s²/√Hz for the gyro, m/s³/√Hz for the
+   accelerometer). The bias follows b(t) = b0 + K·W(t) with W a standard
+   Wiener process, so Var[b(t) − b(0)] = K²·t. Sampled at rate f the bias
+   changes per sample by a normal of standard deviation K·√(1/f); after n
+   samples the change is the sum of n independent normals, one normal of
+   standard deviation K·√(n/f). Its Allan deviation is K·√(τ/3).
+3. **White noise** (IEEE Std 952 angle / velocity random walk, density N =
+   ``noise_density``): one sample at rate f has standard deviation N·√f, so
+   the Allan deviation of the samples is N/√τ.
+4. **Saturation and quantisation**: the output is a signed two's-complement
+   code of ``bits`` bits, LSB = 2·range / 2**bits, rounded to the nearest
+   code; codes run from −2**(bits−1) to 2**(bits−1) − 1, so readings saturate
+   at −range and at +range − LSB, as a real sensor's output register does.
+
+The sensor samples at ``rate``; the controller sees the latest sample. One
+:meth:`Imu.read` call returns one sample and advances the bias walk by the
+number of samples elapsed since the previous call. There is no anti-alias
+filter: white noise is not averaged over the skipped samples.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+Vector3 = tuple[float, float, float]
+
+# Random numbers are drawn a block of rows at a time, one row per read; blocks start small
+# so a short-lived IMU is cheap to make, and grow to _BLOCK_ROWS.
+_FIRST_BLOCK_ROWS = 16
+_BLOCK_ROWS = 1024
+# Columns of one pre-drawn row: gyro walk steps 0-2, gyro white noise 3-5,
+# accelerometer walk steps 6-8, accelerometer white noise 9-11.
+_COLUMNS = 12
+
+
+@dataclass(frozen=True)
+class AxisNoise:
+    """One sensor's noise figures, SI units, the same on each of its three axes.
+
+    ``density``: white-noise density N (unit/√Hz); ``bias_std``: standard
+    deviation of the turn-on bias (unit); ``bias_walk``: rate random walk
+    coefficient K (unit/s/√Hz); ``range``: full scale (±unit); ``bits``:
+    output word length. The unit is rad/s for a gyro, m/s² for an accelerometer.
+    """
+
+    density: float
+    bias_std: float
+    bias_walk: float
+    range: float
+    bits: int
+
+    def __post_init__(self) -> None:
+        for name in ("density", "bias_std", "bias_walk"):
+            value = getattr(self, name)
+            if not (math.isfinite(value) and value >= 0):
+                raise ValueError(f"{name} must be a finite number >= 0, got {value!r}")
+        if not (math.isfinite(self.range) and self.range > 0):
+            raise ValueError(f"range must be a finite number > 0, got {self.range!r}")
+        if not (isinstance(self.bits, int) and 2 <= self.bits <= 64):
+            raise ValueError(f"bits must be an integer from 2 to 64, got {self.bits!r}")
+
+    @classmethod
+    def from_section(cls, section: Any) -> AxisNoise:
+        """From a robot file's ``imu.gyro`` or ``imu.accel`` section (SI values)."""
+        return cls(
+            density=float(section.noise_density),
+            bias_std=float(section.bias),
+            bias_walk=float(section.bias_walk),
+            range=float(section.range),
+            bits=int(section.bits),
+        )
+
+    @property
+    def lsb(self) -> float:
+        """Size of one output code (unit): 2·range / 2**bits."""
+        return 2.0 * self.range / 2.0**self.bits
+
+    def white_std(self, rate: float) -> float:
+        """Standard deviation of the white noise on one sample at ``rate`` Hz: N·√f."""
+        return self.density * math.sqrt(rate)
+
+    def walk_std(self, rate: float) -> float:
+        """Standard deviation of the bias change over one sample at ``rate`` Hz: K·√(1/f)."""
+        return self.bias_walk * math.sqrt(1.0 / rate)
+
+
+@dataclass(frozen=True)
+class _OutputWord:
+    """Saturation limits and code size of one sensor's output word (unit)."""
+
+    low: float  # -range
+    high: float  # +range - LSB
+    lsb: float
+
+    @classmethod
+    def of(cls, noise: AxisNoise) -> _OutputWord:
+        half_codes = 2 ** (noise.bits - 1)
+        return cls(-half_codes * noise.lsb, (half_codes - 1) * noise.lsb, noise.lsb)
+
+
+def _digitise(x: float, y: float, z: float, word: _OutputWord) -> Vector3:
+    """Three axis values clipped to the word's limits and rounded to the nearest code.
+
+    Plain floats, no numpy: this runs every controller tick.
+    """
+    low, high, lsb = word.low, word.high, word.lsb
+    return (
+        math.floor(min(max(x, low), high) / lsb + 0.5) * lsb,
+        math.floor(min(max(y, low), high) / lsb + 0.5) * lsb,
+        math.floor(min(max(z, low), high) / lsb + 0.5) * lsb,
+    )
+
+
+class Imu:
+    """A 3-axis gyro and 3-axis accelerometer sampled at one rate, from one seed.
+
+    ``imu_spec`` is a robot description's ``imu`` section (``rate``, ``gyro``,
+    ``accel``; SI). The same seed gives the same readings for the same inputs.
+    """
+
+    def __init__(self, imu_spec: Any, seed: int):
+        rate = float(imu_spec.rate)
+        if not (math.isfinite(rate) and rate > 0):
+            raise ValueError(f"imu rate must be > 0 Hz, got {rate!r}")
+        self.rate = rate
+        self.gyro_noise = AxisNoise.from_section(imu_spec.gyro)
+        self.accel_noise = AxisNoise.from_section(imu_spec.accel)
+        self.accel_dropout = False
+        self._gyro_word = _OutputWord.of(self.gyro_noise)
+        self._accel_word = _OutputWord.of(self.accel_noise)
+        self._rng = np.random.default_rng(seed)
+        # The turn-on bias comes first from the generator, so it depends on the seed only.
+        turn_on = self._rng.standard_normal(6)
+        self._gyro_bias = [float(v) * self.gyro_noise.bias_std for v in turn_on[:3]]
+        self._accel_bias = [float(v) * self.accel_noise.bias_std for v in turn_on[3:]]
+        self._scale = np.repeat(
+            [
+                self.gyro_noise.walk_std(rate),
+                self.gyro_noise.white_std(rate),
+                self.accel_noise.walk_std(rate),
+                self.accel_noise.white_std(rate),
+            ],
+            3,
+        )
+        self._rows: list[list[float]] = []
+        self._next_row = 0
+        self._block_rows = _FIRST_BLOCK_ROWS
+        self._last: tuple[Vector3, Vector3] | None = None
+
+    @property
+    def gyro_bias(self) -> Vector3:
+        """The gyro's current bias (rad/s, sensor axes)."""
+        return (self._gyro_bias[0], self._gyro_bias[1], self._gyro_bias[2])
+
+    @property
+    def accel_bias(self) -> Vector3:
+        """The accelerometer's current bias (m/s², sensor axes)."""
+        return (self._accel_bias[0], self._accel_bias[1], self._accel_bias[2])
+
+    def add_gyro_bias(self, step: Vector3) -> None:
+        """Sensor fault: add ``step`` (rad/s, sensor axes) to the gyro bias from now on."""
+        for axis in range(3):
+            self._gyro_bias[axis] += float(step[axis])
+
+    def read(
+        self,
+        true_rate: Vector3,
+        true_specific_force: Vector3,
+        samples_elapsed: int = 1,
+    ) -> tuple[Vector3, Vector3]:
+        """The latest sample: ``(gyro rad/s, accel m/s²)``, each three floats, sensor axes.
+
+        ``samples_elapsed`` is how many sensor samples were taken since the
+        previous call; the bias walk advances by that many samples. With 0 no
+        new sample exists and the previous reading is returned again.
+        """
+        if samples_elapsed == 1:
+            walk_scale = 1.0
+        elif samples_elapsed > 1:
+            walk_scale = math.sqrt(samples_elapsed)
+        elif samples_elapsed == 0 and self._last is not None:
+            return self._last
+        elif samples_elapsed == 0:
+            walk_scale = 0.0  # first call: the sensor's first sample, no walk yet
+        else:
+            raise ValueError(f"samples_elapsed must be >= 0, got {samples_elapsed!r}")
+
+        if self._next_row >= len(self._rows):
+            self._draw_block()
+        row = self._rows[self._next_row]
+        self._next_row += 1
+
+        gyro_bias, accel_bias = self._gyro_bias, self._accel_bias
+        gyro_bias[0] += walk_scale * row[0]
+        gyro_bias[1] += walk_scale * row[1]
+        gyro_bias[2] += walk_scale * row[2]
+        accel_bias[0] += walk_scale * row[6]
+        accel_bias[1] += walk_scale * row[7]
+        accel_bias[2] += walk_scale * row[8]
+        try:
+            gyro = _digitise(
+                true_rate[0] + gyro_bias[0] + row[3],
+                true_rate[1] + gyro_bias[1] + row[4],
+                true_rate[2] + gyro_bias[2] + row[5],
+                self._gyro_word,
+            )
+            if self.accel_dropout:
+                accel = (0.0, 0.0, 0.0)
+            else:
+                accel = _digitise(
+                    true_specific_force[0] + accel_bias[0] + row[9],
+                    true_specific_force[1] + accel_bias[1] + row[10],
+                    true_specific_force[2] + accel_bias[2] + row[11],
+                    self._accel_word,
+                )
+        except ValueError:  # math.floor of NaN
+            raise ValueError(
+                f"IMU input is not a number: rate {tuple(true_rate)}, "
+                f"specific force {tuple(true_specific_force)}"
+            ) from None
+        self._last = (gyro, accel)
+        return self._last
+
+    def _draw_block(self) -> None:
+        block = self._rng.standard_normal((self._block_rows, _COLUMNS)) * self._scale
+        self._rows = block.tolist()
+        self._next_row = 0
+        self._block_rows = min(2 * self._block_rows, _BLOCK_ROWS)
+
+
+class Encoders:
+    """Quadrature encoders on the two motor shafts, counting the wheels' turn relative to the body.
+
+    ``counts_per_rev`` counts per motor-shaft turn; the wheel turns once per
+    ``gear_ratio`` motor turns.
+    """
+
+    def __init__(self, counts_per_rev: int, gear_ratio: float):
+        if not (isinstance(counts_per_rev, (int, np.integer)) and counts_per_rev >= 1):
+            raise ValueError(f"counts_per_rev must be an integer >= 1, got {counts_per_rev!r}")
+        if not (math.isfinite(gear_ratio) and gear_ratio > 0):
+            raise ValueError(f"gear_ratio must be > 0, got {gear_ratio!r}")
+        self.counts_per_rev = int(counts_per_rev)
+        self.gear_ratio = float(gear_ratio)
+        self._counts_per_radian = self.counts_per_rev * self.gear_ratio / (2.0 * math.pi)
+        self._lost = {"left": 0, "right": 0}  # counts the encoder failed to register
+        self._raw = {"left": 0, "right": 0}
+        self._direction = {"left": 1, "right": 1}  # sign of the last change; forward at first
+
+    def ticks(self, angle_left: float, angle_right: float) -> tuple[int, int]:
+        """Counts for the wheels' angles relative to the body (rad, + forward).
+
+        floor(angle / 2π · counts_per_rev · gear_ratio), less any missed counts.
+        """
+        return self._count("left", angle_left), self._count("right", angle_right)
+
+    def miss(self, side: str, counts: int) -> None:
+        """Sensor fault: the ``side`` ('left'/'right') encoder fails to register ``counts``.
+
+        The lost counts fall in the direction the wheel last turned (forward if
+        it has not turned yet), so the reading lags the true count by them from now on.
+        """
+        if side not in self._lost:
+            raise ValueError(f"side must be 'left' or 'right', got {side!r}")
+        if not (isinstance(counts, (int, np.integer)) and counts >= 0):
+            raise ValueError(f"counts must be an integer >= 0, got {counts!r}")
+        self._lost[side] += self._direction[side] * int(counts)
+
+    def _count(self, side: str, angle: float) -> int:
+        try:
+            raw = math.floor(angle * self._counts_per_radian)
+        except (ValueError, OverflowError):
+            raise ValueError(f"{side} wheel angle is not a finite number: {angle!r}") from None
+        change = raw - self._raw[side]
+        if change:
+            self._direction[side] = 1 if change > 0 else -1
+            self._raw[side] = raw
+        return raw - self._lost[side]
+
+
+def specific_force(
+    accel_world: np.ndarray, gravity_world: np.ndarray, world_to_sensor: np.ndarray
+) -> np.ndarray:
+    """Specific force in the sensor frame (m/s²): f = Rᵀ (a − g).
+
+    ``accel_world``: the mount point's acceleration, world axes (m/s²).
+    ``gravity_world``: gravity, world axes, e.g. (0, 0, −9.80665).
+    ``world_to_sensor``: the 3×3 rotation R of the sensor's pose in the world:
+    its columns are the sensor axes in world coordinates (it maps sensor
+    coordinates to world ones, as pybullet's getMatrixFromQuaternion of the
+    body orientation does); Rᵀ takes world vectors into sensor axes.
+    """
+    rotation = np.asarray(world_to_sensor, dtype=float).reshape(3, 3)
+    difference = np.asarray(accel_world, dtype=float) - np.asarray(gravity_world, dtype=float)
+    return rotation.T @ difference
+
+
+def tilt_from_accel(accel: Vector3 | np.ndarray) -> float:
+    """Pitch (rad, + top forward) from a specific-force reading at rest: atan2(−a_x, a_z)."""
+    return math.atan2(-float(accel[0]), float(accel[2]))
+
+
+def allan_deviation(
+    rate: np.ndarray, sample_rate: float, taus: Any, overlapping: bool = True
+) -> np.ndarray:
+    """Allan deviation of rate samples (unit of ``rate``) at each averaging time in ``taus`` (s).
+
+    The samples are integrated to an angle θ_k = τ₀·Σ_{i<k} rate_i (θ_0 = 0,
+    τ₀ = 1/sample_rate), then :func:`allan_deviation_from_phase` applies.
+    Fractional-frequency data y with τ₀ = 1 s is the case ``sample_rate = 1``.
+    """
+    if not (math.isfinite(sample_rate) and sample_rate > 0):
+        raise ValueError(f"sample_rate must be > 0 Hz, got {sample_rate!r}")
+    samples = np.asarray(rate, dtype=float)
+    if samples.ndim != 1:
+        raise ValueError(f"rate must be one-dimensional, got shape {samples.shape}")
+    period = 1.0 / sample_rate
+    angle = np.concatenate(([0.0], np.cumsum(samples))) * period
+    return allan_deviation_from_phase(angle, period, taus, overlapping)
+
+
+def allan_deviation_from_phase(
+    phase: np.ndarray, sample_period: float, taus: Any, overlapping: bool = True
+) -> np.ndarray:
+    """Allan deviation from integrated samples θ_0..θ_{N−1} spaced ``sample_period`` (s).
+
+    σ²(τ) = Σ (θ_{k+2m} − 2θ_{k+m} + θ_k)² / (2 τ² · count), τ = m·τ₀, with m
+    the nearest whole number of sample periods. Overlapping: every k from 0
+    to N−2m−1 (count = N − 2m); otherwise k steps by m. Raises ValueError for
+    a τ shorter than one period or longer than half the record.
+    """
+    theta = np.asarray(phase, dtype=float)
+    tau_array = np.atleast_1d(np.asarray(taus, dtype=float))
+    result = np.empty(tau_array.shape)
+    for index, tau in enumerate(tau_array):
+        m = int(round(tau / sample_period))
+        if m < 1 or 2 * m > theta.size - 1:
+            raise ValueError(
+                f"tau {tau:g} s needs 1 to {(theta.size - 1) // 2} sample periods of "
+                f"{sample_period:g} s; the record has {theta.size} points"
+            )
+        step = 1 if overlapping else m
+        ahead, middle, behind = theta[2 * m :: step], theta[m:-m:step], theta[: -2 * m : step]
+        second_difference = ahead - 2.0 * middle + behind
+        span = m * sample_period
+        result[index] = math.sqrt(
+            float(np.dot(second_difference, second_difference))
+            / (2.0 * span * span * second_difference.size)
+        )
+    return result
