@@ -439,3 +439,32 @@ def derive(spec: RobotSpec) -> Figures:
         com_height=com_height,
         steepest_hold_tilt=steepest,
     )
+
+
+def figures_json(spec: RobotSpec) -> dict[str, Any]:
+    """Derived figures as plain JSON types, SI units named in each key."""
+    f = spec.figures
+    return {
+        "name": spec.name,
+        "mass_kg": f.mass,
+        "com_m": f.com.tolist(),
+        "body_mass_kg": f.body.mass,
+        "body_com_m": f.body.com.tolist(),
+        "body_inertia_kg_m2": f.body.inertia.tolist(),
+        "body_pitch_inertia_about_axle_kg_m2": float(
+            f.body.inertia[1, 1] + f.body.mass * (f.body.com[0] ** 2 + f.body.com[2] ** 2)),
+        "com_height_m": f.com_height,
+        "wheel_mass_kg": f.wheel_mass,
+        "wheel_inertia_kg_m2": f.wheel_inertia_axle,
+        "motor_resistance_ohm": f.resistance,
+        "torque_constant_n_m_per_a": f.torque_constant,
+        "back_emf_constant_v_s_per_rad": f.back_emf_constant,
+        "reflected_rotor_inertia_kg_m2": f.reflected_inertia,
+        "stall_torque_per_wheel_n_m": f.stall_torque_wheel,
+        "battery_nominal_voltage_v": f.battery_voltage,
+        "drive_voltage_v": f.drive_voltage,
+        "available_stall_torque_per_wheel_n_m": f.available_stall_torque,
+        "top_speed_m_s": f.top_speed,
+        "steepest_hold_tilt_deg": math.degrees(f.steepest_hold_tilt),
+        "description": spec.to_si_dict(),
+    }

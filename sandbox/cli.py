@@ -1,0 +1,200 @@
+"""The `upright` command line: parse, call the library, print. Exit codes:
+0 ran and stayed up (or every test passed), 1 fell or a test failed,
+2 bad input, 3 the controller script failed.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+import math
+import sys
+from pathlib import Path
+from typing import Annotated, Any, Optional
+
+import typer
+
+from . import __version__
+from .tables import fmt, table
+
+app = typer.Typer(
+    name="upright",
+    help="Physics sandbox for two-wheeled self-balancing robots: describe, simulate, analyse, tune.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+EXIT_OK, EXIT_FELL, EXIT_BAD_INPUT, EXIT_CONTROLLER = 0, 1, 2, 3
+
+
+class BadInput(ValueError):
+    """An argument the command line cannot use (exit code 2)."""
+
+
+def _fail(message: str, code: int) -> None:
+    typer.echo(message, err=True)
+    raise typer.Exit(code)
+
+
+def handles_errors(command):
+    """Turn the library's exceptions into one-line messages and exit codes."""
+
+    @functools.wraps(command)
+    def wrapper(*args, **kwargs):
+        from .control import ControllerError, ControllerLoadError
+
+        try:
+            return command(*args, **kwargs)
+        except typer.Exit:
+            raise
+        except ControllerLoadError as err:
+            _fail(f"error: {err}", EXIT_BAD_INPUT)
+        except ControllerError as err:
+            _fail(f"controller error: {err}", EXIT_CONTROLLER)
+        except (ValueError, OSError) as err:  # RobotFileError, UnitError, BadInput, ...
+            _fail(f"error: {err}", EXIT_BAD_INPUT)
+
+    return wrapper
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"upright {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main(
+    version: Annotated[
+        Optional[bool],
+        typer.Option("--version", callback=_version, is_eager=True, help="Print the version."),
+    ] = None,
+) -> None:
+    """Physics sandbox for two-wheeled self-balancing robots."""
+
+
+RobotArg = Annotated[Path, typer.Argument(help="Robot description file (YAML).")]
+
+
+def parse_sets(items: list[str] | None) -> dict[str, Any]:
+    """``key=value`` strings -> dict; values read as YAML scalars ("0.4", "35 mm", "[0, 0, 1]")."""
+    import yaml
+
+    out: dict[str, Any] = {}
+    for item in items or []:
+        key, sep, text = item.partition("=")
+        if not sep or not key.strip():
+            raise BadInput(f"--set {item!r}: expected KEY=VALUE, e.g. wheels.friction=0.4")
+        try:
+            value = yaml.safe_load(text)
+        except yaml.YAMLError:
+            value = text
+        out[key.strip()] = value
+    return out
+
+
+def _split_sets(items: list[str] | None) -> tuple[dict[str, Any], dict[str, Any]]:
+    """Split --set values into robot keys and controller ``config.`` keys."""
+    robot: dict[str, Any] = {}
+    config: dict[str, Any] = {}
+    for key, value in parse_sets(items).items():
+        if key.startswith("config."):
+            config[key[len("config."):]] = value
+        else:
+            robot[key] = value
+    return robot, config
+
+
+@app.command()
+@handles_errors
+def inspect(
+    robot: RobotArg,
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
+    set_: Annotated[
+        Optional[list[str]], typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
+    ] = None,
+) -> None:
+    """Derived figures of a robot: mass, centre of mass, inertia, motor constants, limits."""
+    from .robot import figures_json, load_robot
+
+    spec = load_robot(robot, parse_sets(set_))
+    data = figures_json(spec)
+    if as_json:
+        typer.echo(json.dumps(data, indent=2))
+        return
+    typer.echo(_inspect_text(spec, data))
+
+
+def _inspect_text(spec, data: dict[str, Any]) -> str:
+    f = spec.figures
+    mm = lambda v: f"{v * 1000:.1f} mm"  # noqa: E731
+    rows = [
+        ("robot", spec.name, ""),
+        ("mass, whole robot", fmt(data["mass_kg"]), "kg"),
+        ("centre of mass, whole robot (x, y, z)", ", ".join(mm(v) for v in f.com), "from axle"),
+        ("body mass (no wheels)", fmt(f.body.mass), "kg"),
+        ("body centre of mass (x, y, z)", ", ".join(mm(v) for v in f.body.com), "from axle"),
+        ("body centre of mass above axle", mm(f.com_height), ""),
+        ("body inertia about its centre of mass Ixx, Iyy, Izz",
+         ", ".join(fmt(f.body.inertia[i, i]) for i in range(3)), "kg m^2"),
+        ("body pitch inertia about the axle", fmt(data["body_pitch_inertia_about_axle_kg_m2"]),
+         "kg m^2"),
+        ("wheel inertia about its axle (one wheel)", fmt(f.wheel_inertia_axle), "kg m^2"),
+        ("motor resistance", fmt(f.resistance), "ohm"),
+        ("torque constant (output shaft)", fmt(f.torque_constant), "N m/A"),
+        ("back-EMF constant (output shaft)", fmt(f.back_emf_constant), "V s/rad"),
+        ("reflected rotor inertia at the wheel", fmt(f.reflected_inertia), "kg m^2"),
+        ("stall torque per wheel at rated voltage", fmt(f.stall_torque_wheel), "N m"),
+        ("battery nominal voltage", fmt(f.battery_voltage), "V"),
+        ("voltage left for the motors (after driver drop)", fmt(f.drive_voltage), "V"),
+        ("stall torque per wheel from the battery", fmt(f.available_stall_torque), "N m"),
+        ("top speed (no load)", fmt(f.top_speed), "m/s"),
+        ("steepest tilt both motors can hold", fmt(math.degrees(f.steepest_hold_tilt)), "deg"),
+    ]
+    out = [table(rows, ("figure", "value", "unit")), "", "Description in force (SI units):"]
+    flat = _flatten(data["description"])
+    out.append(table([(k, v) for k, v in flat], ("key", "value")))
+    return "\n".join(out)
+
+
+def _flatten(data: Any, prefix: str = "") -> list[tuple[str, str]]:
+    rows: list[tuple[str, str]] = []
+    if isinstance(data, dict):
+        for key, value in data.items():
+            rows += _flatten(value, f"{prefix}.{key}" if prefix else str(key))
+    elif isinstance(data, list) and data and isinstance(data[0], dict):
+        for i, value in enumerate(data):
+            rows += _flatten(value, f"{prefix}[{i}]")
+    else:
+        if isinstance(data, list):
+            text = "[" + ", ".join(fmt(v) if isinstance(v, float) else str(v) for v in data) + "]"
+        elif isinstance(data, float):
+            text = fmt(data)
+        else:
+            text = str(data)
+        rows.append((prefix, text))
+    return rows
+
+
+@app.command()
+@handles_errors
+def build(
+    robot: RobotArg,
+    output: Annotated[
+        Optional[Path], typer.Option("-o", "--output", help="Write the URDF here (default: print).")
+    ] = None,
+    set_: Annotated[
+        Optional[list[str]], typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
+    ] = None,
+) -> None:
+    """Write the robot's URDF (an open format other tools read)."""
+    from .robot import load_robot
+    from .urdf import robot_urdf
+
+    text = robot_urdf(load_robot(robot, parse_sets(set_)))
+    if output is None:
+        sys.stdout.write(text)
+        return
+    output.write_text(text, encoding="utf-8")
+    typer.echo(f"wrote {output}")
