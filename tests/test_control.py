@@ -333,11 +333,13 @@ def test_controller_rate_precedence_and_validation():
             controller_rate(Plain, bad)
 
 
-def test_example_controllers_load():
+SHIPPED_CONTROLLERS = sorted((REPO / "controllers").glob("*.py"))
+
+
+@pytest.mark.parametrize("script", SHIPPED_CONTROLLERS, ids=lambda p: p.name)
+def test_example_controllers_load(script):
     """Every shipped controller script loads and has a step method."""
-    scripts = sorted((REPO / "controllers").glob("*.py"))
-    for script in scripts:
-        assert callable(load_controller_class(str(script)).step), script.name
+    assert callable(load_controller_class(str(script)).step), script.name
 
 
 # --------------------------------------------------------------------- duty checks
