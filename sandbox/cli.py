@@ -198,3 +198,120 @@ def build(
         return
     output.write_text(text, encoding="utf-8")
     typer.echo(f"wrote {output}")
+
+
+EXIT_INTERRUPTED = 130  # shell convention for Ctrl-C
+
+
+def _load_config_file(path: Path | None) -> dict[str, Any]:
+    if path is None:
+        return {}
+    import yaml
+
+    from .robot import parse_yaml
+
+    if not path.is_file():
+        raise BadInput(f"{path}: no such config file")
+    data = parse_yaml(path.read_text(encoding="utf-8"), str(path))
+    if data is None:
+        return {}
+    if not isinstance(data, dict):
+        raise BadInput(f"{path}: a controller config must be a mapping of names to values")
+    del yaml
+    return data
+
+
+def _controller_label(controller: str) -> str:
+    name = Path(controller.split(".py:")[0]).stem
+    return name + ("-" + controller.split(".py:")[1] if ".py:" in controller else "")
+
+
+def _print_run(result, folder: Path | None) -> None:
+    s = result.summary
+    deg = lambda v: "-" if v is None else f"{v:.2f} deg"  # noqa: E731
+    rows = [
+        ("status", s["status"]),
+        ("simulated", f"{s['duration_s']:.2f} s"),
+        ("fell at", "-" if s["fell_at_s"] is None else f"{s['fell_at_s']:.3f} s"),
+        ("max |tilt|", deg(s["max_abs_pitch_deg"])),
+        ("rms tilt", deg(s["rms_pitch_deg"])),
+        ("drift", "-" if s["drift_m"] is None else f"{s['drift_m']:+.3f} m"),
+        ("duty saturated", "-" if s["saturation_fraction"] is None
+         else f"{100 * s['saturation_fraction']:.1f} % of ticks"),
+        ("real-time factor", "-" if not s["realtime_factor"] else f"{s['realtime_factor']:.1f}x"),
+    ]
+    test = s.get("test_result")
+    if test:
+        rows.append(("test", f"{test['name']}: {'PASSED' if test['passed'] else 'FAILED'}"))
+        for check in test["checks"]:
+            mark = "ok  " if check["passed"] else "FAIL"
+            rows.append(("", f"{mark} {check['label']}: {check['measured']} (limit {check['limit']})"))
+    typer.echo(table(rows))
+    if result.message and result.status != "completed":
+        typer.echo(result.message)
+    if folder is not None:
+        typer.echo(f"results in {folder}/ (trace.csv, summary.json, run.yaml, plots.png)")
+
+
+def _exit_code(result) -> int:
+    status = result.status
+    if status == "controller_error":
+        return EXIT_CONTROLLER
+    if status == "interrupted":
+        return EXIT_INTERRUPTED
+    test = result.summary.get("test_result")
+    if status == "fell" or (test is not None and not test["passed"]):
+        return EXIT_FELL
+    return EXIT_OK
+
+
+@app.command()
+@handles_errors
+def run(
+    robot: RobotArg,
+    controller: Annotated[str, typer.Argument(help="Controller script: file.py or file.py:Class.")],
+    test: Annotated[Optional[str], typer.Option(
+        "--test", help="A built-in test name or a test file (YAML).")] = None,
+    duration: Annotated[Optional[float], typer.Option(
+        "--duration", help="Simulated seconds (default 10, or the test's own).")] = None,
+    tilt: Annotated[float, typer.Option("--tilt", help="Starting tilt, degrees (+ forward).")] = 0.0,
+    seed: Annotated[int, typer.Option("--seed", help="Seed for every random source.")] = 0,
+    set_: Annotated[Optional[list[str]], typer.Option(
+        "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")
+    ] = None,
+    config_file: Annotated[Optional[Path], typer.Option(
+        "--config", help="Controller config file (YAML mapping of names to values).")] = None,
+    rate: Annotated[Optional[float], typer.Option(
+        "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")] = None,
+    latency: Annotated[float, typer.Option(
+        "--latency", help="Delay from the controller's output to the bridge, ms.")] = 0.0,
+    physics_step: Annotated[float, typer.Option(
+        "--physics-step", help="Physics step, ms; must divide the controller period.")] = 1.0,
+    fall_limit: Annotated[float, typer.Option(
+        "--fall-limit", help="Tilt at which the robot counts as fallen, degrees.")] = 60.0,
+    out: Annotated[Optional[Path], typer.Option(
+        "--out", help="Run folder (default runs/<robot>-<controller>-<test>-<time>/).")] = None,
+    video: Annotated[bool, typer.Option("--video", help="Also render video.mp4.")] = False,
+    plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
+) -> None:
+    """One headless run of a controller on a robot; writes a run folder."""
+    from .robot import load_robot
+    from .runner import RunSettings
+    from .session import run_once
+
+    robot_sets, config_sets = _split_sets(set_)
+    spec = load_robot(robot, robot_sets)
+    config = {**_load_config_file(config_file), **config_sets}
+    settings = RunSettings(
+        controller=controller, config=config, duration=10.0 if duration is None else duration,
+        tilt=math.radians(tilt), seed=seed, physics_dt=physics_step / 1000.0, rate_hz=rate,
+        latency=latency / 1000.0, fall_limit=math.radians(fall_limit),
+    )
+    if settings.duration <= 0:
+        raise BadInput(f"--duration must be positive, got {settings.duration:g}")
+    folder = out
+    result = run_once(spec, settings, test=test, folder=folder, default_root=Path("runs"),
+                      label=_controller_label(controller), duration_given=duration is not None,
+                      video=video, plots=plots)
+    _print_run(result, result.folder)
+    raise typer.Exit(_exit_code(result))

@@ -152,7 +152,8 @@ class RobotFacts:
     nominal), drive_voltage (V, nominal battery less the driver's drop),
     max_wheel_speed (rad/s, no-load at drive_voltage), imu_at (m, body frame),
     physics_dt (s), rate_hz (controller rate, Hz), pitch_inertia (kg·m², body
-    without wheels about the axle line).
+    without wheels about the axle line), body_mass (kg, without wheels),
+    stall_torque (N·m per wheel at drive_voltage, at the wheel).
     """
 
     wheel_radius: float
@@ -167,6 +168,8 @@ class RobotFacts:
     physics_dt: float
     rate_hz: float
     pitch_inertia: float
+    body_mass: float = 0.0
+    stall_torque: float = 0.0
 
     @classmethod
     def from_spec(cls, spec: Any, rate_hz: float, physics_dt: float) -> RobotFacts:
@@ -190,6 +193,8 @@ class RobotFacts:
             physics_dt=float(physics_dt),
             rate_hz=float(rate_hz),
             pitch_inertia=float(body.inertia[1, 1] + body.mass * offset_sq),  # parallel axis
+            body_mass=float(body.mass),
+            stall_torque=float(fig.available_stall_torque),
         )
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
@@ -222,7 +223,8 @@ def load_robot(path: str | Path, overrides: dict[str, Any] | None = None) -> Rob
         raise RobotFileError(source, [f"cannot read the file: {err}"]) from None
     data = parse_yaml(text, source)
     if isinstance(data, dict) and "name" not in data:
-        data["name"] = path.stem
+        # The file's stem, cut to the characters a name may hold ('my bot (v2)' -> 'my bot -v2-').
+        data["name"] = re.sub(r"[^A-Za-z0-9 _.-]+", "-", path.stem).strip() or "robot"
     return robot_from_dict(data, source, overrides)
 
 
@@ -235,6 +237,8 @@ def parse_yaml(text: str, source: str) -> Any:
         where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
         problem = getattr(err, "problem", None) or str(err).splitlines()[0]
         raise RobotFileError(source, [f"{where}YAML syntax error: {problem}"]) from None
+    except (ValueError, RecursionError) as err:  # a tag's value ('2020-13-45'), deep nesting
+        raise RobotFileError(source, [f"cannot read the YAML: {err}"]) from None
 
 
 def robot_from_dict(
@@ -259,6 +263,9 @@ def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:
     problems = []
     for dotted, value in overrides.items():
         keys = dotted.split(".")
+        if not all(keys):
+            problems.append(f"{dotted!r}: a key has an empty part (write e.g. wheels.friction)")
+            continue
         node: Any = data
         try:
             for key in keys[:-1]:

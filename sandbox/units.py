@@ -42,6 +42,9 @@ KINDS: dict[str, tuple[str, str]] = {
 }
 
 _GRAVITY_KINDS = {"acceleration", "accel_density", "accel_walk"}
+# Kinds measured per angle. pint treats the radian as dimensionless, so without this
+# check '5 Hz' would pass as 5 rad/s (not 2π·5) and '6000 rpm' as a 628 Hz rate.
+_ANGULAR_KINDS = {"angle", "angular_speed", "gyro_density", "gyro_walk"}
 _LONE_G = re.compile(r"(?<![A-Za-z_])g(?![A-Za-z_0-9])")
 _SQRT = re.compile(r"(?:sqrt|√)\s*\(([^()]*)\)")
 _SQRT_BARE = re.compile(r"√\s*([A-Za-z]+)")
@@ -67,7 +70,10 @@ def to_si(value: object, kind: str) -> float:
     if isinstance(value, bool):
         raise UnitError(f"expected {example}, got {value!r}")
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:  # an int too large for a float (YAML reads long digit runs as int)
+            raise UnitError(f"expected {example}, got an integer too large for a float") from None
     elif isinstance(value, str):
         number = _parse_string(value, kind, unit, example)
     else:
@@ -80,6 +86,9 @@ def to_si(value: object, kind: str) -> float:
 @lru_cache(maxsize=4096)
 def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
     reg = registry()
+    if "," in text:  # pint drops commas: '1,5 mm' would silently read as 15 mm
+        raise UnitError(f"cannot read {text!r} as {example}: write decimals with a point, "
+                        "one value only")
     source = _SQRT_BARE.sub(r"(\1)**0.5", _SQRT.sub(r"(\1)**0.5", text.strip()))
     if kind in _GRAVITY_KINDS:
         source = _LONE_G.sub("g0", source)
@@ -92,13 +101,19 @@ def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
     if str(quantity.units) == "dimensionless":  # no unit at all: SI already
         return float(quantity.magnitude)
     try:
-        return float(quantity.to(unit).magnitude)
+        number = float(quantity.to(unit).magnitude)
     except pint.DimensionalityError as err:
         raise UnitError(
             f"{text!r} is {_describe(quantity)}, expected {example}"
         ) from err
     except Exception as err:
         raise UnitError(f"cannot read {text!r} as {example}") from err
+    has_angle = dict(quantity.to_root_units().unit_items()).get("radian", 0) != 0
+    if kind in _ANGULAR_KINDS and not has_angle:
+        raise UnitError(f"{text!r} has no angle unit (rad, deg, rpm...), expected {example}")
+    if kind not in _ANGULAR_KINDS and has_angle:
+        raise UnitError(f"{text!r} has an angle unit, expected {example}")
+    return number
 
 
 def _describe(quantity: pint.Quantity) -> str:

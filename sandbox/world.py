@@ -14,12 +14,9 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 
 import numpy as np
-import pybullet as pb
 
 from .robot import RobotSpec
 from .urdf import WHEEL_JOINTS, robot_urdf
-
-LOAD_FLAGS = pb.URDF_USE_IMPLICIT_CYLINDER | pb.URDF_USE_INERTIA_FROM_FILE
 
 
 @contextmanager
@@ -40,6 +37,17 @@ def quiet():
         os.dup2(saved[1], 2)
         for fd in (*saved, devnull):
             os.close(fd)
+
+
+with quiet():  # importing pybullet prints its build time from C
+    import pybullet as pb
+
+LOAD_FLAGS = pb.URDF_USE_IMPLICIT_CYLINDER | pb.URDF_USE_INERTIA_FROM_FILE
+
+
+def engine_version() -> int:
+    """pybullet's API version (for run records)."""
+    return pb.getAPIVersion()
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,388 @@
+"""The fixed-rate loop: world, actuators, IMU, controller, events and recorder.
+
+Each physics step: read the wheel rates, step the motors and battery, apply
+the torques, step the engine. Each controller tick: read the true state, hand
+the controller the IMU sample and encoder counts it would have now, hold its
+duties (after the optional latency) until the next tick, write one trace row.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import platform
+import time
+import traceback
+from collections import deque
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from . import __version__
+from .actuators import DriveTrain
+from .control import (
+    ControllerError,
+    Reading,
+    RobotFacts,
+    check_duties,
+    controller_rate,
+    load_controller_class,
+    make_controller,
+    script_location,
+)
+from .imu import Encoders, Imu
+from .metrics import run_figures
+from .record import COLUMNS, TraceWriter, write_json, write_yaml
+from .robot import RobotSpec
+from .world import Ground, World
+
+STATUS_COMPLETED = "completed"
+STATUS_FELL = "fell"
+STATUS_CONTROLLER_ERROR = "controller_error"
+STATUS_INTERRUPTED = "interrupted"
+
+
+class TimingError(ValueError):
+    """A controller period that the physics step does not divide, and the like."""
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """Everything one run needs besides the robot. Times in s, angles in rad, rates in Hz."""
+
+    controller: str  # "path.py" or "path.py:ClassName"
+    config: dict = field(default_factory=dict)
+    duration: float = 10.0
+    tilt: float = 0.0
+    seed: int = 0
+    physics_dt: float = 1e-3
+    rate_hz: float | None = None  # None: the class's rate_hz, else 200 Hz
+    latency: float = 0.0  # controller output delay before the bridge
+    fall_limit: float = math.radians(60.0)
+    test_name: str = "none"
+
+
+@dataclass
+class RunResult:
+    status: str
+    summary: dict[str, Any]
+    folder: Path | None
+    trace: dict[str, np.ndarray]
+    message: str = ""
+
+
+def steps_per_tick(physics_dt: float, rate_hz: float) -> int:
+    """Physics steps in one controller period; the step must divide the period."""
+    if not (physics_dt > 0 and math.isfinite(physics_dt)):
+        raise TimingError(f"physics step must be a positive number of seconds, got {physics_dt!r}")
+    if not (rate_hz > 0 and math.isfinite(rate_hz)):
+        raise TimingError(f"controller rate must be a positive number of Hz, got {rate_hz!r}")
+    ratio = 1.0 / (rate_hz * physics_dt)
+    steps = round(ratio)
+    if steps < 1 or abs(ratio - steps) > 1e-9 * max(1.0, ratio):
+        raise TimingError(
+            f"the physics step ({physics_dt * 1000:g} ms) must divide the controller period "
+            f"({1000 / rate_hz:g} ms at {rate_hz:g} Hz): choose a rate such as "
+            f"{_nearby_rates(physics_dt)}"
+        )
+    return steps
+
+
+def _nearby_rates(physics_dt: float) -> str:
+    base = 1.0 / physics_dt
+    return ", ".join(f"{base / n:g} Hz" for n in (2, 4, 5, 10))
+
+
+def sample_step(tick_step: int, physics_dt: float, imu_rate: float, latency_steps: float) -> int:
+    """Physics step of the newest IMU sample a controller sees at ``tick_step``.
+
+    Samples are taken at multiples of 1/imu_rate; the newest one at or before
+    the tick time less the sensor's latency.
+    """
+    t = (tick_step - latency_steps) * physics_dt
+    if t <= 0:
+        return 0
+    n = math.floor(t * imu_rate + 1e-9)
+    return min(tick_step, round(n / imu_rate / physics_dt))
+
+
+class Simulation:
+    """One run of a controller on a robot. Use :func:`run` for the whole thing."""
+
+    def __init__(self, spec: RobotSpec, settings: RunSettings, ground: Ground | None = None,
+                 timeline: Any = None, controller_class: type | None = None):
+        self.spec = spec
+        self.settings = settings
+        cls = controller_class or load_controller_class(settings.controller)
+        self.rate_hz = controller_rate(cls, settings.rate_hz)
+        self.steps_per_tick = steps_per_tick(settings.physics_dt, self.rate_hz)
+        self.period = self.steps_per_tick * settings.physics_dt
+        if settings.latency < 0:
+            raise TimingError(f"latency must be zero or more, got {settings.latency * 1000:g} ms")
+        if spec.imu.latency >= self.period:
+            raise TimingError(
+                f"imu.latency ({spec.imu.latency * 1000:g} ms) must be shorter than the "
+                f"controller period ({self.period * 1000:g} ms)")
+        self.latency_steps = round(settings.latency / settings.physics_dt)
+        self.robot_facts = RobotFacts.from_spec(spec, self.rate_hz, settings.physics_dt)
+        self.controller_class = cls
+        self.ground = ground
+        self.timeline = timeline
+
+    def run(self, folder: Path | None) -> RunResult:
+        spec, s = self.spec, self.settings
+        dt = s.physics_dt
+        spt = self.steps_per_tick
+        n_ticks = int(round(s.duration * self.rate_hz))
+        sensor_latency_steps = spec.imu.latency / dt
+        imu_rate = spec.imu.rate
+        mount = np.array(spec.imu.at, dtype=float)
+
+        if folder is not None:
+            folder.mkdir(parents=True, exist_ok=True)
+        writer = TraceWriter(folder / "trace.csv") if folder is not None else _MemoryTrace()
+        world = World(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
+        drive = DriveTrain(spec)
+        imu = Imu(spec.imu, seed=s.seed)
+        encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)
+        reading = Reading(dt=self.period)
+        timeline = self.timeline
+        status, message, fell_at = STATUS_COMPLETED, "", None
+        clipped = 0
+        ticks_run = 0
+        wall_start = time.perf_counter()
+        gravity = world.gravity_vector()
+        try:
+            controller = make_controller(self.controller_class, s.config, self.robot_facts)
+            if hasattr(controller, "reset"):
+                _call(controller.reset, "reset", 0.0, self.controller_class)
+            pending: deque[tuple[int, float, float]] = deque()  # (apply at step, left, right)
+            step = 0
+            x = 0.0
+            last_speed = 0.0
+            prev_mount_velocity = None  # mount-point velocity one step before a sample
+            sample_truth = ((0.0, 0.0, 0.0), (0.0, 0.0, 0.0))
+            last_sample_index = -1
+            state = world.body_state()
+            for tick in range(n_ticks + 1):
+                t = tick * self.period
+                if timeline is not None:
+                    timeline.fire(t, self, world, drive, imu, encoders, reading)
+                # -- the IMU sample the controller sees now
+                sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
+                if sample_at == step:
+                    sample_truth = self._imu_truth(world, state, mount, gravity,
+                                                   prev_mount_velocity)
+                sample_index = math.floor(sample_at * dt * imu_rate + 1e-9)
+                elapsed = max(sample_index - last_sample_index, 0)
+                last_sample_index = sample_index
+                gyro, accel = imu.read(sample_truth[0], sample_truth[1], elapsed)
+                angle_l, angle_r, rate_l, rate_r = world.wheel_state()
+                ticks_lr = encoders.ticks(angle_l, angle_r)
+                speed = world.forward_speed(state)
+                x += 0.5 * (speed + last_speed) * self.period if tick else 0.0
+                last_speed = speed
+                pitch = state.pitch
+                # -- the controller
+                reading.t = t
+                reading.gyro = gyro
+                reading.accel = accel
+                reading.ticks = ticks_lr
+                reading.battery_v = drive.battery_voltage
+                if timeline is not None:
+                    reading.setpoint = timeline.setpoint
+                out = _call(controller.step, "step", t, self.controller_class, reading)
+                try:
+                    left, right, was_clipped = check_duties(out)
+                except ControllerError as err:
+                    raise ControllerError(f"at t = {t:.3f} s: step {err}") from None
+                clipped += was_clipped
+                pending.append((step + self.latency_steps, left, right))
+                # -- the trace row
+                pose = state.com
+                q = state.com_orientation
+                writer.add((
+                    t, x, pitch, state.pitch_rate, state.yaw, speed, left, right,
+                    drive.current_left, drive.current_right, drive.battery_voltage,
+                    gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2],
+                    ticks_lr[0], ticks_lr[1],
+                    pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
+                ), reading.take_logs())
+                ticks_run = tick + 1
+                # -- fell?
+                if abs(pitch) > s.fall_limit or world.body_on_ground():
+                    status, fell_at = STATUS_FELL, t
+                    message = (f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)")
+                    break
+                if tick == n_ticks:
+                    break
+                # -- physics until the next tick
+                next_sample = sample_step(step + spt, dt, imu_rate, sensor_latency_steps)
+                if next_sample - 1 == step:
+                    prev_mount_velocity = world.point_velocity(state, mount)
+                for _ in range(spt):
+                    while pending and pending[0][0] <= step:
+                        _, left, right = pending.popleft()
+                        drive.set_duty(left, right)
+                    angle_l, angle_r, rate_l, rate_r = world.wheel_state()
+                    torque_l, torque_r = drive.step(rate_l, rate_r, dt)
+                    world.step(torque_l, torque_r, rate_l, rate_r)
+                    step += 1
+                    if step == next_sample - 1:
+                        prev_mount_velocity = world.point_velocity(world.body_state(), mount)
+                    elif step == next_sample and step != step // spt * spt:
+                        sample_truth = self._imu_truth(world, world.body_state(), mount,
+                                                       gravity, prev_mount_velocity)
+                state = world.body_state()
+        except ControllerError as err:
+            status, message = STATUS_CONTROLLER_ERROR, str(err)
+            if folder is not None:
+                (folder / "controller_error.txt").write_text(
+                    message + "\n\n" + "".join(traceback.format_exception(err)), encoding="utf-8")
+        except KeyboardInterrupt:
+            status, message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
+        finally:
+            writer.close()
+            world.close()
+        wall = time.perf_counter() - wall_start
+        trace = writer.arrays()
+        summary = self._summary(status, trace, ticks_run, fell_at, clipped, wall, writer)
+        if folder is not None:
+            write_json(folder / "summary.json", summary)
+        return RunResult(status=status, summary=summary, folder=folder, trace=trace,
+                         message=message)
+
+    def _imu_truth(self, world: World, state, mount: np.ndarray, gravity: np.ndarray,
+                   prev_mount_velocity: np.ndarray | None):
+        """True gyro rate and specific force at the IMU, sensor axes = body axes."""
+        rotation = state.rotation
+        velocity = world.point_velocity(state, mount)
+        if prev_mount_velocity is None:
+            acceleration = np.zeros(3)
+        else:
+            acceleration = (velocity - prev_mount_velocity) / world.dt
+        rate = rotation.T @ state.angular_velocity
+        force = rotation.T @ (acceleration - gravity)
+        return (tuple(rate.tolist()), tuple(force.tolist()))
+
+    def _summary(self, status, trace, ticks_run, fell_at, clipped, wall, writer) -> dict:
+        s = self.settings
+        duration = (ticks_run - 1) * self.period if ticks_run else 0.0
+        figures = run_figures(trace)
+        return {
+            "status": status,
+            "duration_s": duration,
+            "fell_at_s": fell_at,
+            **figures,
+            "clipped_duties": int(clipped),
+            "realtime_factor": duration / wall if wall > 0 else None,
+            "seed": s.seed,
+            "rate_hz": self.rate_hz,
+            "physics_dt_s": s.physics_dt,
+            "test": s.test_name,
+            "dropped_log_channels": sorted(getattr(writer, "dropped_channels", ())),
+        }
+
+
+def _call(method: Callable, name: str, t: float, cls: type, *args):
+    """Call a controller method; anything it raises becomes a ControllerError naming t."""
+    try:
+        return method(*args)
+    except ControllerError as err:
+        raise ControllerError(f"at t = {t:.3f} s: {err}") from err
+    except Exception as err:
+        where = script_location(err, cls)
+        at = f" ({where})" if where else ""
+        raise ControllerError(
+            f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}") from err
+
+
+class _MemoryTrace(TraceWriter):
+    """A trace kept in memory only (sweeps that need figures, not files)."""
+
+    def __init__(self):  # noqa: D107 - no file
+        self._rows, self._logs = [], []
+        self._log_names = None
+        self.dropped_channels = set()
+        self.columns = [[] for _ in COLUMNS]
+        self.log_columns = {}
+        self.block_rows = 10**9
+
+    def flush(self) -> None:
+        if self._log_names is None:
+            names: list[str] = []
+            for logs in self._logs:
+                names.extend(k for k in logs if k not in names)
+            self._log_names = names
+            self.log_columns = {n: [] for n in names}
+        for row, logs in zip(self._rows, self._logs):
+            for column, value in zip(self.columns, row):
+                column.append(value)
+            for n in self._log_names:
+                self.log_columns[n].append(logs.get(n, math.nan))
+        self._rows.clear()
+        self._logs.clear()
+
+    def close(self) -> None:
+        self.flush()
+
+
+def file_hash(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def run_record(spec: RobotSpec, settings: RunSettings, rate_hz: float,
+               extra: dict | None = None) -> dict[str, Any]:
+    """The resolved run description for run.yaml: enough to repeat the run."""
+    import scipy
+
+    from .world import engine_version
+
+    script = Path(settings.controller.split(".py:")[0] + ".py"
+                  if ".py:" in settings.controller else settings.controller)
+    record = {
+        "robot": spec.to_si_dict(),
+        "controller": {
+            "path": str(script.resolve()),
+            "class": settings.controller.split(".py:")[1] if ".py:" in settings.controller
+            else "Controller",
+            "sha256": file_hash(script) if script.is_file() else None,
+            "config": settings.config,
+        },
+        "test": settings.test_name,
+        "seed": settings.seed,
+        "duration_s": settings.duration,
+        "tilt_rad": settings.tilt,
+        "physics_dt_s": settings.physics_dt,
+        "rate_hz": rate_hz,
+        "latency_s": settings.latency,
+        "fall_limit_rad": settings.fall_limit,
+        "versions": {
+            "upright": __version__,
+            "python": platform.python_version(),
+            "numpy": np.__version__,
+            "scipy": scipy.__version__,
+            "pybullet_api": engine_version(),
+        },
+    }
+    if extra:
+        record.update(extra)
+    return record
+
+
+def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
+        ground: Ground | None = None, timeline: Any = None,
+        extra_record: dict | None = None) -> RunResult:
+    """Run a controller on a robot; write the run folder when ``folder`` is given."""
+    sim = Simulation(spec, settings, ground=ground, timeline=timeline)
+    if folder is not None:
+        from .urdf import robot_urdf
+
+        folder.mkdir(parents=True, exist_ok=True)
+        write_yaml(folder / "run.yaml", run_record(spec, replace(settings), sim.rate_hz,
+                                                   extra_record))
+        write_yaml(folder / "robot.yaml", spec.to_si_dict())
+        (folder / "robot.urdf").write_text(robot_urdf(spec), encoding="utf-8")
+    return sim.run(folder)

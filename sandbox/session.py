@@ -1,0 +1,55 @@
+"""One run as the command line asks for it: resolve the test, run, then plots and video.
+
+Kept apart from the runner so the loop stays free of files it does not need,
+and apart from the CLI so programs (sweeps, the suite) can call it too.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+from .record import default_run_dir
+from .robot import RobotSpec
+from .runner import RunResult, RunSettings, run
+
+
+def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
+             folder: Path | None = None, default_root: Path = Path("runs"),
+             label: str = "controller", duration_given: bool = False, video: bool = False,
+             plots: bool = True) -> RunResult:
+    """Run ``settings`` on ``spec`` (optionally through a test) into a run folder."""
+    timeline = ground = None
+    test_name = "none"
+    plan = None
+    if test is not None:
+        from .events import resolve_test
+
+        plan = resolve_test(test, spec)
+        test_name = plan.name
+        timeline = plan.timeline()
+        ground = plan.ground(spec)
+        spec = plan.robot(spec)
+        if not duration_given:
+            settings = replace(settings, duration=plan.duration)
+    settings = replace(settings, test_name=test_name)
+    if folder is None:
+        folder = default_run_dir(default_root, spec.name, label, test_name)
+    extra = {"test_definition": plan.describe()} if plan is not None else None
+    result = run(spec, settings, folder=folder, ground=ground, timeline=timeline,
+                 extra_record=extra)
+    if plan is not None:
+        from .record import write_json
+
+        result.summary["test_result"] = plan.judge(result, timeline)
+        write_json(folder / "summary.json", result.summary)
+    if plots and result.trace["t_s"].size > 1:
+        from .plots import plot_run
+
+        plot_run(result.trace, folder / "plots.png", title=f"{spec.name} - {label} - {test_name}",
+                 marks=timeline.marks if timeline is not None else ())
+    if video and result.trace["t_s"].size > 1:
+        from .render import render_run
+
+        render_run(folder)
+    return result
