@@ -28,8 +28,8 @@ from sandbox.control import ComplementaryTilt
 GRAVITY = 9.80665
 
 
-def starting_gains(robot, speed_up=3.0, damping=0.7):
-    """(tilt_kp, tilt_kd) so the tilt loop alone is three times as fast as the fall, damping 0.7."""
+def starting_gains(robot, speed_up=2.5, damping=0.7):
+    """(tilt_kp, tilt_kd) so the tilt loop alone is 2.5 times as fast as the fall, damping 0.7."""
     lean = robot.body_mass * GRAVITY * robot.com_height
     omega = speed_up * math.sqrt(lean / robot.pitch_inertia)
     torque = 2.0 * robot.stall_torque

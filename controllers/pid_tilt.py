@@ -17,7 +17,7 @@ Config keys (all optional; --set config.kp=30 and so on):
 
 Without kp/kd in the config the gains are worked out from the robot's facts so
 that the tilt loop alone (wheels held still) would have a natural frequency
-three times the robot's fall rate with damping ratio 0.7. `upright analyze ROBOT
+2.5 times the robot's fall rate with damping ratio 0.7. `upright analyze ROBOT
 --emit-config FILE` writes gains from an LQR design instead.
 """
 
@@ -28,7 +28,7 @@ from sandbox.control import ComplementaryTilt, Pid
 GRAVITY = 9.80665
 
 
-def starting_gains(robot, speed_up=3.0, damping=0.7):
+def starting_gains(robot, speed_up=2.5, damping=0.7):
     """(kp, kd) from the body's pendulum figures and the motors' stall torque.
 
     Tilt loop alone: I*th'' = m*g*l*th - T*(kp*th + kd*th'), with T the stall

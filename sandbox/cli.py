@@ -88,7 +88,7 @@ def parse_sets(items: list[str] | None) -> dict[str, Any]:
             raise BadInput(f"--set {item!r}: expected KEY=VALUE, e.g. wheels.friction=0.4")
         try:
             value = yaml.safe_load(text)
-        except yaml.YAMLError:
+        except (yaml.YAMLError, ValueError, RecursionError):  # e.g. '2020-13-45': keep the text
             value = text
         out[key.strip()] = value
     return out

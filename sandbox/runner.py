@@ -112,7 +112,8 @@ class Simulation:
     """One run of a controller on a robot. Use :func:`run` for the whole thing."""
 
     def __init__(self, spec: RobotSpec, settings: RunSettings, ground: Ground | None = None,
-                 timeline: Any = None, controller_class: type | None = None):
+                 timeline: Any = None, controller_class: type | None = None,
+                 world_factory: Callable[..., Any] = World):
         self.spec = spec
         self.settings = settings
         cls = controller_class or load_controller_class(settings.controller)
@@ -130,6 +131,7 @@ class Simulation:
         self.controller_class = cls
         self.ground = ground
         self.timeline = timeline
+        self.world_factory = world_factory  # tests pass a fake world here
 
     def run(self, folder: Path | None) -> RunResult:
         spec, s = self.spec, self.settings
@@ -143,7 +145,7 @@ class Simulation:
         if folder is not None:
             folder.mkdir(parents=True, exist_ok=True)
         writer = TraceWriter(folder / "trace.csv") if folder is not None else _MemoryTrace()
-        world = World(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
+        world = self.world_factory(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
         drive = DriveTrain(spec)
         imu = Imu(spec.imu, seed=s.seed)
         encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)

@@ -93,11 +93,10 @@ class BodyState:
         return float(self.angular_velocity @ self.rotation[:, 1])
 
 
-def _quaternion_of(rotation: np.ndarray) -> tuple[float, float, float, float]:
-    """Rotation matrix -> pybullet quaternion (x, y, z, w)."""
-    from scipy.spatial.transform import Rotation
-
-    return tuple(float(v) for v in Rotation.from_matrix(rotation).as_quat())
+def cross(a, b) -> np.ndarray:
+    """3-vector cross product (numpy's np.cross costs ~50 µs on tiny arrays)."""
+    return np.array((a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2],
+                     a[0] * b[1] - a[1] * b[0]))
 
 
 class World:
@@ -133,6 +132,7 @@ class World:
         self.wheel_joints = self._joint_indices()
         info = pb.getDynamicsInfo(self.robot_id, -1, physicsClientId=c)
         self._com_local = np.array(info[3])
+        self._inertial_quaternion = info[4]
         self._inertial_rotation = np.array(
             pb.getMatrixFromQuaternion(info[4], physicsClientId=c)).reshape(3, 3)
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
@@ -156,10 +156,11 @@ class World:
             state = self.body_state()
             sink = float(state.axle @ self.floor_normal())
             target_axle = self.floor_normal() * sink
-            rotation = np.array(pb.getMatrixFromQuaternion(
-                pb.getQuaternionFromEuler([0, tilt, 0]))).reshape(3, 3)
+            link_quat = pb.getQuaternionFromEuler([0, tilt, 0])
+            rotation = np.array(pb.getMatrixFromQuaternion(link_quat)).reshape(3, 3)
             com = target_axle + rotation @ self._com_local
-            quat = _quaternion_of(rotation @ self._inertial_rotation)
+            quat = pb.multiplyTransforms([0, 0, 0], link_quat, [0, 0, 0],
+                                         self._inertial_quaternion)[1]
             pb.resetBasePositionAndOrientation(rid, com.tolist(), quat, physicsClientId=c)
             pb.resetBaseVelocity(rid, [0, 0, 0], [0, 0, 0], physicsClientId=c)
             for j in self.wheel_joints:
@@ -284,17 +285,17 @@ class World:
         self._axle_axis = rotation[:, 1].copy()
         return BodyState(axle=axle, rotation=rotation, com=com, velocity=velocity,
                          angular_velocity=omega, com_orientation=quat,
-                         axle_velocity=velocity + np.cross(omega, axle - com))
+                         axle_velocity=velocity + cross(omega, axle - com))
 
     def point_velocity(self, state: BodyState, local_point) -> np.ndarray:
         """World velocity (m/s) of a point fixed in the body, given in body coordinates (m)."""
         offset = state.rotation @ np.asarray(local_point) - (state.com - state.axle)
-        return state.velocity + np.cross(state.angular_velocity, offset)
+        return state.velocity + cross(state.angular_velocity, offset)
 
     def forward_axis(self, state: BodyState) -> np.ndarray:
         """Unit vector along the floor, perpendicular to the axle: the robot's heading."""
         normal = self.floor_normal()
-        forward = np.cross(state.rotation[:, 1], normal)
+        forward = cross(state.rotation[:, 1], normal)
         norm = np.linalg.norm(forward)
         return forward / norm if norm > 1e-9 else state.rotation[:, 0]
 
