@@ -10,7 +10,7 @@ import json
 import math
 import sys
 from pathlib import Path
-from typing import Annotated, Any, Optional
+from typing import Annotated, Any
 
 import typer
 
@@ -19,7 +19,8 @@ from .tables import fmt, table
 
 app = typer.Typer(
     name="upright",
-    help="Physics sandbox for two-wheeled self-balancing robots: describe, simulate, analyse, tune.",
+    help="Physics sandbox for two-wheeled self-balancing robots: describe, simulate, "
+    "analyse, tune.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
@@ -67,7 +68,7 @@ def _version(value: bool) -> None:
 @app.callback()
 def main(
     version: Annotated[
-        Optional[bool],
+        bool | None,
         typer.Option("--version", callback=_version, is_eager=True, help="Print the version."),
     ] = None,
 ) -> None:
@@ -112,7 +113,7 @@ def inspect(
     robot: RobotArg,
     as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
     set_: Annotated[
-        Optional[list[str]], typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
+        list[str] | None, typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
     ] = None,
 ) -> None:
     """Derived figures of a robot: mass, centre of mass, inertia, motor constants, limits."""
@@ -182,10 +183,10 @@ def _flatten(data: Any, prefix: str = "") -> list[tuple[str, str]]:
 def build(
     robot: RobotArg,
     output: Annotated[
-        Optional[Path], typer.Option("-o", "--output", help="Write the URDF here (default: print).")
+        Path | None, typer.Option("-o", "--output", help="Write the URDF here (default: print).")
     ] = None,
     set_: Annotated[
-        Optional[list[str]], typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
+        list[str] | None, typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
     ] = None,
 ) -> None:
     """Write the robot's URDF (an open format other tools read)."""
@@ -245,7 +246,8 @@ def _print_run(result, folder: Path | None) -> None:
         rows.append(("test", f"{test['name']}: {'PASSED' if test['passed'] else 'FAILED'}"))
         for check in test["checks"]:
             mark = "ok  " if check["passed"] else "FAIL"
-            rows.append(("", f"{mark} {check['label']}: {check['measured']} (limit {check['limit']})"))
+            rows.append(
+                ("", f"{mark} {check['label']}: {check['measured']} (limit {check['limit']})"))
     typer.echo(table(rows))
     if result.message and result.status != "completed":
         typer.echo(result.message)
@@ -270,18 +272,19 @@ def _exit_code(result) -> int:
 def run(
     robot: RobotArg,
     controller: Annotated[str, typer.Argument(help="Controller script: file.py or file.py:Class.")],
-    test: Annotated[Optional[str], typer.Option(
+    test: Annotated[str | None, typer.Option(
         "--test", help="A built-in test name or a test file (YAML).")] = None,
-    duration: Annotated[Optional[float], typer.Option(
+    duration: Annotated[float | None, typer.Option(
         "--duration", help="Simulated seconds (default 10, or the test's own).")] = None,
-    tilt: Annotated[float, typer.Option("--tilt", help="Starting tilt, degrees (+ forward).")] = 0.0,
+    tilt: Annotated[float, typer.Option(
+        "--tilt", help="Starting tilt, degrees (+ forward).")] = 0.0,
     seed: Annotated[int, typer.Option("--seed", help="Seed for every random source.")] = 0,
-    set_: Annotated[Optional[list[str]], typer.Option(
+    set_: Annotated[list[str] | None, typer.Option(
         "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")
     ] = None,
-    config_file: Annotated[Optional[Path], typer.Option(
+    config_file: Annotated[Path | None, typer.Option(
         "--config", help="Controller config file (YAML mapping of names to values).")] = None,
-    rate: Annotated[Optional[float], typer.Option(
+    rate: Annotated[float | None, typer.Option(
         "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")] = None,
     latency: Annotated[float, typer.Option(
         "--latency", help="Delay from the controller's output to the bridge, ms.")] = 0.0,
@@ -289,7 +292,7 @@ def run(
         "--physics-step", help="Physics step, ms; must divide the controller period.")] = 1.0,
     fall_limit: Annotated[float, typer.Option(
         "--fall-limit", help="Tilt at which the robot counts as fallen, degrees.")] = 60.0,
-    out: Annotated[Optional[Path], typer.Option(
+    out: Annotated[Path | None, typer.Option(
         "--out", help="Run folder (default runs/<robot>-<controller>-<test>-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Also render video.mp4.")] = False,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,

@@ -28,7 +28,7 @@ def run_figures(trace: dict[str, np.ndarray]) -> dict[str, float | None]:
 
 
 def recovery_time(t: np.ndarray, pitch: np.ndarray, after: float, band: float) -> float | None:
-    """Seconds after ``after`` until |pitch| stays within ``band`` (rad) to the end; None if never."""
+    """Seconds after ``after`` until |pitch| stays within ``band`` (rad); None if never."""
     mask = t >= after
     if not mask.any():
         return None

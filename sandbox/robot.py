@@ -256,7 +256,7 @@ def robot_from_dict(
 
 
 def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:
-    """Return a copy of ``data`` with dotted keys set (``wheels.friction``, ``body.parts.0.mass``)."""
+    """A copy of ``data`` with dotted keys set (``wheels.friction``, ``body.parts.0.mass``)."""
     import copy
 
     data = copy.deepcopy(data)
@@ -410,7 +410,8 @@ def derive(spec: RobotSpec) -> Figures:
     for i, part in enumerate(spec.body.parts):
         boxes.append(Box(part.name, part.mass, tuple(part.size), tuple(part.at),
                          part.colour or PALETTE[i % len(PALETTE)]))
-    body = combine(MassProperties(b.mass, np.array(b.at), box_inertia(b.mass, b.size)) for b in boxes)
+    body = combine(MassProperties(b.mass, np.array(b.at), box_inertia(b.mass, b.size))
+                   for b in boxes)
 
     w = spec.wheels
     wheel_inertia = cylinder_inertia_y(w.mass, w.radius, w.width)

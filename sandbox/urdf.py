@@ -100,7 +100,8 @@ def robot_urdf(spec: RobotSpec, with_reflected_inertia: bool = False) -> str:
     lines.append("  </link>")
 
     w = spec.wheels
-    cylinder = f'<geometry><cylinder radius="{_num(w.radius)}" length="{_num(w.width)}"/></geometry>'
+    cylinder = (f'<geometry><cylinder radius="{_num(w.radius)}" length="{_num(w.width)}"/>'
+                "</geometry>")
     # URDF cylinders lie along z; turn them about x so the axle is along y.
     turned = '<origin xyz="0 0 0" rpy="1.5707963267948966 0 0"/>'
     for side, sign, joint in (("left", 1.0, WHEEL_JOINTS[0]), ("right", -1.0, WHEEL_JOINTS[1])):

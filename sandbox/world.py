@@ -326,7 +326,7 @@ class World:
         return out
 
     def body_inertia_world_axes(self) -> np.ndarray:
-        """The body's inertia about its centre of mass, in body axes (kg·m²), as the engine holds it."""
+        """The body's inertia about its centre of mass, body axes (kg·m²), as the engine has it."""
         info = pb.getDynamicsInfo(self.robot_id, -1, physicsClientId=self.client)
         principal = np.diag(info[2])
         r = self._inertial_rotation
