@@ -131,6 +131,8 @@ class DriveTrain:
         self._cells = battery.cells
         self._cell_voltage = battery.cell_voltage
         self._internal_resistance = battery.cells * battery.cell_resistance
+        self._ocv_charge = math.nan  # charge at which _ocv was last computed
+        self._ocv = 0.0
         self._capacity = battery.capacity
         figures = spec.figures
         self._wheel_side_inertia = figures.wheel_inertia_axle + figures.reflected_inertia
@@ -234,8 +236,13 @@ class DriveTrain:
 
     def _terminal(self, charge: float, battery_current: float) -> float:
         """Terminal voltage (V): open-circuit voltage minus the internal drop, never below 0."""
-        ocv = open_circuit_voltage(charge, self._cells, self._cell_voltage)
-        return max(ocv - self._internal_resistance * battery_current, 0.0)
+        # The open-circuit voltage moves by microvolts per step: recompute it only when the
+        # charge has moved by 1e-6 of capacity (saves a table look-up every physics step).
+        if not abs(charge - self._ocv_charge) <= 1e-6:  # (NaN at first: always computes)
+            self._ocv = open_circuit_voltage(charge, self._cells, self._cell_voltage)
+            self._ocv_charge = charge
+        terminal = self._ocv - self._internal_resistance * battery_current
+        return terminal if terminal > 0.0 else 0.0
 
     def _set_rest_rate(self, dt: float) -> None:
         if not dt > 0:

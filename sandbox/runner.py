@@ -141,7 +141,7 @@ class Simulation:
         n_ticks = int(round(s.duration * self.rate_hz))
         sensor_latency_steps = spec.imu.latency / dt
         imu_rate = spec.imu.rate
-        mount = np.array(spec.imu.at, dtype=float)
+        mount = tuple(float(v) for v in spec.imu.at)
 
         if folder is not None:
             folder.mkdir(parents=True, exist_ok=True)
@@ -157,6 +157,7 @@ class Simulation:
         ticks_run = 0
         wall_start = time.perf_counter()
         gravity = world.gravity_vector()
+        coupled = world.reflected_inertia > 0.0  # the world then reads the body every step
         try:
             controller = make_controller(self.controller_class, s.config, self.robot_facts)
             if hasattr(controller, "reset"):
@@ -176,8 +177,7 @@ class Simulation:
                 # -- the IMU sample the controller sees now
                 sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
                 if sample_at == step:
-                    sample_truth = self._imu_truth(world, state, mount, gravity,
-                                                   prev_mount_velocity)
+                    sample_truth = self._imu_truth(state, mount, gravity, prev_mount_velocity, dt)
                 sample_index = math.floor(sample_at * dt * imu_rate + 1e-9)
                 elapsed = max(sample_index - last_sample_index, 0)
                 last_sample_index = sample_index
@@ -215,30 +215,38 @@ class Simulation:
                 ), reading.take_logs())
                 ticks_run = tick + 1
                 # -- fell?
-                if abs(pitch) > s.fall_limit or world.body_on_ground():
+                if abs(pitch) > s.fall_limit or world.body_touching(pitch, tick % 20 == 0):
                     status, fell_at = STATUS_FELL, t
                     message = (f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)")
                     break
                 if tick == n_ticks:
                     break
-                # -- physics until the next tick
-                next_sample = sample_step(step + spt, dt, imu_rate, sensor_latency_steps)
+                # -- physics until the next tick, stopping where something is due
+                target = step + spt
+                next_sample = sample_step(target, dt, imu_rate, sensor_latency_steps)
                 if next_sample - 1 == step:
-                    prev_mount_velocity = world.point_velocity(state, mount)
-                for _ in range(spt):
+                    prev_mount_velocity = state.point_velocity(mount)
+                while step < target:
                     while pending and pending[0][0] <= step:
                         _, left, right = pending.popleft()
                         drive.set_duty(left, right)
-                    angle_l, angle_r, rate_l, rate_r = world.wheel_state()
-                    torque_l, torque_r = drive.step(rate_l, rate_r, dt)
-                    world.step(torque_l, torque_r, rate_l, rate_r)
-                    step += 1
+                    stop = target
+                    if pending and pending[0][0] < stop:
+                        stop = pending[0][0]
+                    if step < next_sample - 1 < stop and not (coupled and next_sample == target):
+                        stop = next_sample - 1
+                    elif step < next_sample < stop:
+                        stop = next_sample
+                    world.advance(stop - step, drive)
+                    step = stop
                     if step == next_sample - 1:
-                        prev_mount_velocity = world.point_velocity(world.body_state(), mount)
-                    elif step == next_sample and step != step // spt * spt:
-                        sample_truth = self._imu_truth(world, world.body_state(), mount,
-                                                       gravity, prev_mount_velocity)
+                        prev_mount_velocity = world.body_state().point_velocity(mount)
+                    elif step == next_sample and step != target:
+                        sample_truth = self._imu_truth(world.body_state(), mount, gravity,
+                                                       prev_mount_velocity, dt)
                 state = world.body_state()
+                if coupled and next_sample == target:
+                    prev_mount_velocity = world.previous_point_velocity(state, mount)
         except ControllerError as err:
             status, message = STATUS_CONTROLLER_ERROR, str(err)
             if folder is not None:
@@ -257,18 +265,22 @@ class Simulation:
         return RunResult(status=status, summary=summary, folder=folder, trace=trace,
                          message=message)
 
-    def _imu_truth(self, world: World, state, mount: np.ndarray, gravity: np.ndarray,
-                   prev_mount_velocity: np.ndarray | None):
-        """True gyro rate and specific force at the IMU, sensor axes = body axes."""
-        rotation = state.rotation
-        velocity = world.point_velocity(state, mount)
+    @staticmethod
+    def _imu_truth(state, mount, gravity, prev_mount_velocity, dt: float):
+        """True gyro rate and specific force at the IMU (sensor axes = body axes).
+
+        The acceleration is the mount point's velocity change over the last
+        physics step, so an IMU high on the body feels the robot's own motion.
+        """
         if prev_mount_velocity is None:
-            acceleration = np.zeros(3)
+            acceleration = (0.0, 0.0, 0.0)
         else:
-            acceleration = (velocity - prev_mount_velocity) / world.dt
-        rate = rotation.T @ state.angular_velocity
-        force = rotation.T @ (acceleration - gravity)
-        return (tuple(rate.tolist()), tuple(force.tolist()))
+            v = state.point_velocity(mount)
+            p = prev_mount_velocity
+            acceleration = ((v[0] - p[0]) / dt, (v[1] - p[1]) / dt, (v[2] - p[2]) / dt)
+        force = (acceleration[0] - gravity[0], acceleration[1] - gravity[1],
+                 acceleration[2] - gravity[2])
+        return state.to_body(state.angular_velocity), state.to_body(force)
 
     def _summary(self, status, trace, ticks_run, fell_at, clipped, wall, writer) -> dict:
         s = self.settings

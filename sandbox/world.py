@@ -64,39 +64,77 @@ class Ground:
     spinning_friction: float = 0.001
 
 
-@dataclass
-class BodyState:
-    """True state at one instant. Positions m, velocities m/s, rates rad/s, world frame."""
+Vector = tuple[float, float, float]
+Matrix = tuple[float, float, float, float, float, float, float, float, float]  # row-major
 
-    axle: np.ndarray  # axle-centre position
-    rotation: np.ndarray  # body frame -> world (3×3)
-    com: np.ndarray  # body centre-of-mass position
-    velocity: np.ndarray  # body centre-of-mass velocity
-    angular_velocity: np.ndarray  # world axes
-    com_orientation: tuple[float, float, float, float]  # pybullet's base quaternion (for replay)
-    axle_velocity: np.ndarray = field(default_factory=lambda: np.zeros(3))
+
+@dataclass(frozen=True, slots=True)
+class BodyState:
+    """True state at one instant, world frame: positions m, velocities m/s, rates rad/s.
+
+    Plain tuples rather than numpy arrays: the loop reads this every controller
+    tick and tiny arrays cost more than the arithmetic.
+    """
+
+    axle: Vector  # axle-centre position
+    rotation: Matrix  # body frame -> world, row-major 3×3
+    com: Vector  # body centre-of-mass position
+    velocity: Vector  # body centre-of-mass velocity
+    angular_velocity: Vector  # world axes
+    com_orientation: tuple[float, float, float, float]  # pybullet's base quaternion (replay)
+    axle_velocity: Vector
 
     @property
     def pitch(self) -> float:
         """Rotation about body y, + when the top leans forward (rad)."""
         r = self.rotation
-        return math.atan2(-r[2, 0], math.hypot(r[2, 1], r[2, 2]))
+        return math.atan2(-r[6], math.hypot(r[7], r[8]))
 
     @property
     def yaw(self) -> float:
         r = self.rotation
-        return math.atan2(r[1, 0], r[0, 0])
+        return math.atan2(r[3], r[0])
 
     @property
     def pitch_rate(self) -> float:
         """Body angular rate about its own y axis (rad/s), what a gyro's y axis sees."""
-        return float(self.angular_velocity @ self.rotation[:, 1])
+        r, w = self.rotation, self.angular_velocity
+        return w[0] * r[1] + w[1] * r[4] + w[2] * r[7]
+
+    def to_body(self, vector: Vector) -> Vector:
+        """A world vector in body axes (Rᵀ v)."""
+        r = self.rotation
+        x, y, z = vector
+        return (r[0] * x + r[3] * y + r[6] * z, r[1] * x + r[4] * y + r[7] * z,
+                r[2] * x + r[5] * y + r[8] * z)
+
+    def to_world(self, vector: Vector) -> Vector:
+        """A body vector in world axes (R v)."""
+        r = self.rotation
+        x, y, z = vector
+        return (r[0] * x + r[1] * y + r[2] * z, r[3] * x + r[4] * y + r[5] * z,
+                r[6] * x + r[7] * y + r[8] * z)
+
+    def point_velocity(self, local_point: Vector) -> Vector:
+        """World velocity of a point fixed in the body, given in body coordinates (m)."""
+        px, py, pz = self.to_world(local_point)
+        ax, ay, az = self.axle
+        cx, cy, cz = self.com
+        return _add(self.velocity, _cross(self.angular_velocity,
+                                          (ax + px - cx, ay + py - cy, az + pz - cz)))
 
 
-def cross(a, b) -> np.ndarray:
-    """3-vector cross product (numpy's np.cross costs ~50 µs on tiny arrays)."""
-    return np.array((a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2],
-                     a[0] * b[1] - a[1] * b[0]))
+def _cross(a: Vector, b: Vector) -> Vector:
+    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
+
+
+def _add(a: Vector, b: Vector) -> Vector:
+    return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
+
+
+def _matmul(a: Matrix, b: Matrix) -> Matrix:
+    return tuple(sum(a[3 * i + k] * b[3 * k + j] for k in range(3))
+                 for i in range(3) for j in range(3))
 
 
 class World:
@@ -116,6 +154,8 @@ class World:
         self.gravity = float(gravity)
         self.ground = ground or Ground(friction=spec.wheels.friction,
                                        rolling_resistance=spec.wheels.rolling_resistance)
+        slope = self.ground.slope
+        self._floor_normal = (-math.sin(slope), 0.0, math.cos(slope))
         with quiet():
             self.client = pb.connect(pb.DIRECT)
         c = self.client
@@ -132,14 +172,22 @@ class World:
         self.wheel_joints = self._joint_indices()
         info = pb.getDynamicsInfo(self.robot_id, -1, physicsClientId=c)
         self._com_local = np.array(info[3])
+        self._com_local_tuple = tuple(info[3])
         self._inertial_quaternion = info[4]
         self._inertial_rotation = np.array(
             pb.getMatrixFromQuaternion(info[4], physicsClientId=c)).reshape(3, 3)
+        # (inertial frame -> body frame) = transpose of the inertial rotation, row-major
+        self._body_from_inertial = tuple(self._inertial_rotation.T.flatten().tolist())
+        self._identity_inertial = bool(np.allclose(self._inertial_rotation, np.eye(3)))
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
         # the cross term couples wheel and body and is applied here every step.
         self.reflected_inertia = spec.figures.reflected_inertia if rotor_coupling else 0.0
-        self._axle_axis = np.array([0.0, 1.0, 0.0])
+        self._axle_axis = (0.0, 1.0, 0.0)
         self._last_rates: tuple[float, float, float] | None = None
+        # the body's (velocity, angular velocity) read at the start of the last step
+        # by the rotor coupling, or None: lets the IMU model skip a read
+        self.velocity_before_step: tuple | None = None
+        self._clear_tilt = self._tilt_before_touching()
         self._settle(tilt)
 
     def _settle(self, tilt: float, steps: int = 100) -> None:
@@ -154,8 +202,9 @@ class World:
         for _ in range(steps):
             pb.stepSimulation(physicsClientId=c)
             state = self.body_state()
-            sink = float(state.axle @ self.floor_normal())
-            target_axle = self.floor_normal() * sink
+            normal = np.array(self._floor_normal)
+            sink = float(np.dot(state.axle, normal))
+            target_axle = normal * sink
             link_quat = pb.getQuaternionFromEuler([0, tilt, 0])
             rotation = np.array(pb.getMatrixFromQuaternion(link_quat)).reshape(3, 3)
             com = target_axle + rotation @ self._com_local
@@ -193,9 +242,7 @@ class World:
             handle.write(text)
             path = handle.name
         try:
-            slope = self.ground.slope
-            up = np.array([math.sin(slope), 0.0, math.cos(slope)])  # floor normal
-            axle = up * self.spec.wheels.radius
+            axle = np.array(self._floor_normal) * self.spec.wheels.radius
             orientation = pb.getQuaternionFromEuler([0, tilt, 0])
             with quiet():
                 robot = pb.loadURDF(path, axle.tolist(), orientation, flags=LOAD_FLAGS,
@@ -243,32 +290,84 @@ class World:
         ``rate_left``/``rate_right`` are this step's wheel rates relative to the
         body; they are needed only for the rotor-inertia coupling.
         """
-        c = self.client
-        j = self.reflected_inertia
-        if j > 0.0:
-            w = pb.getBaseVelocity(self.robot_id, physicsClientId=c)[1]
-            axis = self._axle_axis
-            body_rate = w[0] * axis[0] + w[1] * axis[1] + w[2] * axis[2]
-            last = self._last_rates
-            self._last_rates = (body_rate, rate_left + body_rate, rate_right + body_rate)
-            if last is not None:
-                inv_dt = 1.0 / self.dt
-                body_acc = (body_rate - last[0]) * inv_dt
-                left_acc = (rate_left + body_rate - last[1]) * inv_dt
-                right_acc = (rate_right + body_rate - last[2]) * inv_dt
-                # The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇ that link inertias
-                # cannot hold: it gives +Jθ̈ on each wheel (as a joint torque) and
-                # +Jφ̈ on the body (the joint's reaction is undone by an external torque).
-                torque_left += j * body_acc
-                torque_right += j * body_acc
-                body_torque = j * (left_acc + right_acc + 2.0 * body_acc)
-                pb.applyExternalTorque(
-                    self.robot_id, -1,
-                    (axis[0] * body_torque, axis[1] * body_torque, axis[2] * body_torque),
-                    pb.WORLD_FRAME, physicsClientId=c)
+        if self.reflected_inertia > 0.0:
+            torque_left, torque_right = self._rotor_coupling(
+                torque_left, torque_right, rate_left, rate_right)
         pb.setJointMotorControlArray(self.robot_id, self.wheel_joints, pb.TORQUE_CONTROL,
-                                     forces=(torque_left, torque_right), physicsClientId=c)
-        pb.stepSimulation(physicsClientId=c)
+                                     forces=(torque_left, torque_right), physicsClientId=self.client)
+        pb.stepSimulation(physicsClientId=self.client)
+
+    def advance(self, steps: int, drive) -> None:
+        """Run ``steps`` physics steps with the motors in the loop.
+
+        Each step: read the wheel rates relative to the body, let ``drive`` (an
+        :class:`sandbox.actuators.DriveTrain`) turn them into wheel torques,
+        apply them, step. The hot loop of every run, so names are bound locally
+        and the rotor coupling is written out here rather than called.
+        """
+        robot, joints, client, dt = self.robot_id, self.wheel_joints, self.client, self.dt
+        read = pb.getJointStates
+        read_body = pb.getBaseVelocity
+        push_body = pb.applyExternalTorque
+        apply = pb.setJointMotorControlArray
+        step = pb.stepSimulation
+        torque_mode, world_frame = pb.TORQUE_CONTROL, pb.WORLD_FRAME
+        motors = drive.step
+        j = self.reflected_inertia
+        inv_dt = 1.0 / dt
+        ax, ay, az = self._axle_axis
+        last = self._last_rates
+        for _ in range(steps):
+            left, right = read(robot, joints, physicsClientId=client)
+            rate_left, rate_right = left[1], right[1]
+            torque_left, torque_right = motors(rate_left, rate_right, dt)
+            if j > 0.0:  # see _rotor_coupling for the physics
+                velocity = read_body(robot, physicsClientId=client)
+                w = velocity[1]
+                body_rate = w[0] * ax + w[1] * ay + w[2] * az
+                now = (body_rate, rate_left + body_rate, rate_right + body_rate)
+                if last is not None:
+                    body_acc = (body_rate - last[0]) * inv_dt
+                    body_torque = j * ((now[1] - last[1]) * inv_dt + (now[2] - last[2]) * inv_dt
+                                       + 2.0 * body_acc)
+                    push_body(robot, -1, (ax * body_torque, ay * body_torque, az * body_torque),
+                              world_frame, physicsClientId=client)
+                    torque_left += j * body_acc
+                    torque_right += j * body_acc
+                last = now
+                self.velocity_before_step = velocity
+            apply(robot, joints, torque_mode, forces=(torque_left, torque_right),
+                  physicsClientId=client)
+            step(physicsClientId=client)
+        self._last_rates = last
+
+    def _rotor_coupling(self, torque_left: float, torque_right: float,
+                        rate_left: float, rate_right: float) -> tuple[float, float]:
+        """Add the rotor inertia's cross term; returns the wheel torques to apply.
+
+        The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇ that link inertias
+        cannot hold: it gives +Jθ̈ on each wheel (as a joint torque) and +Jφ̈ on
+        the body (the joint's reaction is undone by an external torque). The
+        accelerations are the previous step's, from velocity differences.
+        """
+        j = self.reflected_inertia
+        w = pb.getBaseVelocity(self.robot_id, physicsClientId=self.client)[1]
+        axis = self._axle_axis
+        body_rate = w[0] * axis[0] + w[1] * axis[1] + w[2] * axis[2]
+        last = self._last_rates
+        self._last_rates = (body_rate, rate_left + body_rate, rate_right + body_rate)
+        if last is None:
+            return torque_left, torque_right
+        inv_dt = 1.0 / self.dt
+        body_acc = (body_rate - last[0]) * inv_dt
+        left_acc = (rate_left + body_rate - last[1]) * inv_dt
+        right_acc = (rate_right + body_rate - last[2]) * inv_dt
+        body_torque = j * (left_acc + right_acc + 2.0 * body_acc)
+        pb.applyExternalTorque(
+            self.robot_id, -1,
+            (axis[0] * body_torque, axis[1] * body_torque, axis[2] * body_torque),
+            pb.WORLD_FRAME, physicsClientId=self.client)
+        return torque_left + j * body_acc, torque_right + j * body_acc
 
     # ------------------------------------------------------------- true state
     def body_state(self) -> BodyState:
@@ -276,36 +375,77 @@ class World:
         c = self.client
         com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
         velocity, omega = pb.getBaseVelocity(self.robot_id, physicsClientId=c)
-        inertial = np.array(pb.getMatrixFromQuaternion(quat, physicsClientId=c)).reshape(3, 3)
-        rotation = inertial @ self._inertial_rotation.T
-        com = np.array(com)
-        axle = com - rotation @ self._com_local
-        omega = np.array(omega)
-        velocity = np.array(velocity)
-        self._axle_axis = rotation[:, 1].copy()
+        rotation = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
+        if not self._identity_inertial:
+            rotation = _matmul(rotation, self._body_from_inertial)
+        lx, ly, lz = self._com_local_tuple
+        r = rotation
+        axle = (com[0] - (r[0] * lx + r[1] * ly + r[2] * lz),
+                com[1] - (r[3] * lx + r[4] * ly + r[5] * lz),
+                com[2] - (r[6] * lx + r[7] * ly + r[8] * lz))
+        self._axle_axis = (r[1], r[4], r[7])
         return BodyState(axle=axle, rotation=rotation, com=com, velocity=velocity,
                          angular_velocity=omega, com_orientation=quat,
-                         axle_velocity=velocity + cross(omega, axle - com))
+                         axle_velocity=_add(velocity, _cross(
+                             omega, (axle[0] - com[0], axle[1] - com[1], axle[2] - com[2]))))
 
-    def point_velocity(self, state: BodyState, local_point) -> np.ndarray:
-        """World velocity (m/s) of a point fixed in the body, given in body coordinates (m)."""
-        offset = state.rotation @ np.asarray(local_point) - (state.com - state.axle)
-        return state.velocity + cross(state.angular_velocity, offset)
-
-    def forward_axis(self, state: BodyState) -> np.ndarray:
+    def forward_axis(self, state: BodyState) -> Vector:
         """Unit vector along the floor, perpendicular to the axle: the robot's heading."""
-        normal = self.floor_normal()
-        forward = cross(state.rotation[:, 1], normal)
-        norm = np.linalg.norm(forward)
-        return forward / norm if norm > 1e-9 else state.rotation[:, 0]
+        r = state.rotation
+        fx, fy, fz = _cross((r[1], r[4], r[7]), self._floor_normal)
+        norm = math.sqrt(fx * fx + fy * fy + fz * fz)
+        if norm < 1e-9:
+            return (r[0], r[3], r[6])
+        return (fx / norm, fy / norm, fz / norm)
 
-    def floor_normal(self) -> np.ndarray:
-        s = self.ground.slope
-        return np.array([-math.sin(s), 0.0, math.cos(s)])
+    def floor_normal(self) -> Vector:
+        """Unit normal of the floor (world), tilted by the slope about y."""
+        return self._floor_normal
 
     def forward_speed(self, state: BodyState) -> float:
         """Axle-centre speed along the heading (m/s)."""
-        return float(state.axle_velocity @ self.forward_axis(state))
+        f = self.forward_axis(state)
+        v = state.axle_velocity
+        return v[0] * f[0] + v[1] * f[1] + v[2] * f[2]
+
+    def previous_point_velocity(self, state: BodyState, local_point: Vector) -> Vector | None:
+        """Velocity one physics step before ``state`` of a point fixed in the body, or None.
+
+        Uses the body velocity read during the last step (when the rotor coupling
+        runs) and the present geometry: the lever arm turns by ω·dt, a few
+        milliradians, in one step.
+        """
+        if self.velocity_before_step is None:
+            return None
+        velocity, omega = self.velocity_before_step
+        px, py, pz = state.to_world(local_point)
+        ax, ay, az = state.axle
+        cx, cy, cz = state.com
+        return _add(velocity, _cross(omega, (ax + px - cx, ay + py - cy, az + pz - cz)))
+
+    def _tilt_before_touching(self) -> float:
+        """Smallest tilt (rad) at which a corner of a body box reaches flat floor."""
+        radius = self.spec.wheels.radius
+        corners = [(b.at[0] + sx * b.size[0] / 2, b.at[2] + sz * b.size[2] / 2)
+                   for b in self.spec.figures.boxes for sx in (-1, 1) for sz in (-1, 1)]
+        for degrees in range(0, 91):
+            tilt = math.radians(degrees)
+            for sign in (1.0, -1.0):
+                c, s = math.cos(tilt), math.sin(sign * tilt)
+                if any(-x * s + z * c <= -radius for x, z in corners):
+                    return tilt
+        return math.pi / 2
+
+    def body_touching(self, pitch: float, check_anyway: bool = False) -> bool:
+        """Whether the body touches the floor; the engine is asked only when it could.
+
+        On a flat floor the body cannot touch below the tilt at which its lowest
+        corner reaches the floor (less a 10° margin for slopes and bumps);
+        ``check_anyway`` asks regardless.
+        """
+        if not check_anyway and abs(pitch) < self._clear_tilt - math.radians(10.0):
+            return False
+        return self.body_on_ground()
 
     def body_on_ground(self) -> bool:
         """True when any part of the body (not a wheel) touches the floor."""
@@ -313,8 +453,8 @@ class World:
                                        physicsClientId=self.client)
         return len(contacts) > 0
 
-    def gravity_vector(self) -> np.ndarray:
-        return np.array([0.0, 0.0, -self.gravity])
+    def gravity_vector(self) -> Vector:
+        return (0.0, 0.0, -self.gravity)
 
     # ------------------------------------------------------------- reading the engine
     def link_masses(self) -> dict[str, float]:
