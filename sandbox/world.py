@@ -11,7 +11,7 @@ import math
 import os
 import tempfile
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -294,7 +294,8 @@ class World:
             torque_left, torque_right = self._rotor_coupling(
                 torque_left, torque_right, rate_left, rate_right)
         pb.setJointMotorControlArray(self.robot_id, self.wheel_joints, pb.TORQUE_CONTROL,
-                                     forces=(torque_left, torque_right), physicsClientId=self.client)
+                                     forces=(torque_left, torque_right),
+                                     physicsClientId=self.client)
         pb.stepSimulation(physicsClientId=self.client)
 
     def advance(self, steps: int, drive) -> None:
