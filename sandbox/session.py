@@ -17,8 +17,12 @@ from .runner import RunResult, RunSettings, run
 def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
              folder: Path | None = None, default_root: Path = Path("runs"),
              label: str = "controller", duration_given: bool = False, video: bool = False,
-             plots: bool = True) -> RunResult:
-    """Run ``settings`` on ``spec`` (optionally through a test) into a run folder."""
+             plots: bool = True, write: bool = True) -> RunResult:
+    """Run ``settings`` on ``spec`` (optionally through a test) into a run folder.
+
+    ``write=False`` keeps everything in memory (sweeps): no folder, plots or video;
+    the summary (with the test's verdict) and the trace come back in the result.
+    """
     timeline = ground = None
     test_name = "none"
     plan = None
@@ -33,7 +37,9 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
         if not duration_given:
             settings = replace(settings, duration=plan.duration)
     settings = replace(settings, test_name=test_name)
-    if folder is None:
+    if not write:
+        folder = None
+    elif folder is None:
         folder = default_run_dir(default_root, spec.name, label, test_name)
     extra = {"test_definition": plan.describe()} if plan is not None else None
     result = run(spec, settings, folder=folder, ground=ground, timeline=timeline,
@@ -42,7 +48,11 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
         from .record import write_json
 
         result.summary["test_result"] = plan.judge(result, timeline)
-        write_json(folder / "summary.json", result.summary)
+        result.summary["marks"] = [list(m) for m in timeline.marks]
+        if folder is not None:
+            write_json(folder / "summary.json", result.summary)
+    if folder is None:
+        return result
     if plots and result.trace["t_s"].size > 1:
         from .plots import plot_run
 
