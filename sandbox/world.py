@@ -51,17 +51,94 @@ def engine_version() -> int:
 
 
 @dataclass(frozen=True)
+class Patch:
+    """A stretch of floor with its own friction, from ``start`` to ``end`` m along x."""
+
+    start: float
+    end: float
+    friction: float
+
+
+@dataclass(frozen=True)
+class Step:
+    """A raised strip across the floor (a door threshold): its near edge at ``at`` m."""
+
+    at: float
+    height: float
+    length: float = 0.03
+
+
+@dataclass(frozen=True)
+class Rough:
+    """Uneven floor: smoothed random heights of about ``amplitude`` m, bumps ``wavelength`` m."""
+
+    amplitude: float
+    wavelength: float
+    seed: int = 0
+
+
+@dataclass(frozen=True)
 class Ground:
-    """The floor: friction (wheel on floor), rolling resistance coefficient, slope.
+    """The floor: friction (wheel on floor), rolling resistance coefficient, slope and features.
 
     ``slope`` (rad) tilts the floor about the world y axis so that driving
-    forward (+x) climbs it.
+    forward (+x) climbs it. Positions of patches and steps are along the floor.
     """
 
     friction: float = 0.9
     rolling_resistance: float = 0.0
     slope: float = 0.0
     spinning_friction: float = 0.001
+    patches: tuple[Patch, ...] = ()
+    steps: tuple[Step, ...] = ()
+    rough: Rough | None = None
+
+
+FLOOR_COLOUR = (0.82, 0.80, 0.74, 1.0)
+PATCH_COLOUR = (0.55, 0.72, 0.86, 1.0)
+STEP_COLOUR = (0.45, 0.40, 0.36, 1.0)
+FLOOR_HALF_WIDTH = 5.0  # m across the robot's path
+FLOOR_EXTENT = (-20.0, 40.0)  # m along the path
+ROUGH_EXTENT = (-1.0, 8.0)
+
+
+def floor_pieces(ground: Ground) -> list[tuple[float, float, float]]:
+    """The flat floor split at patch edges: (start m, end m, friction) along x, in order."""
+    cuts = {FLOOR_EXTENT[0], FLOOR_EXTENT[1]}
+    for patch in ground.patches:
+        cuts.update((patch.start, patch.end))
+    edges = sorted(c for c in cuts if FLOOR_EXTENT[0] <= c <= FLOOR_EXTENT[1])
+    pieces = []
+    for a, b in zip(edges[:-1], edges[1:]):
+        if b - a < 1e-6:
+            continue
+        middle = 0.5 * (a + b)
+        friction = ground.friction
+        for patch in ground.patches:  # a later patch wins where patches overlap
+            if patch.start <= middle <= patch.end:
+                friction = patch.friction
+        pieces.append((a, b, friction))
+    return pieces
+
+
+def rough_heights(rough: Rough, spacing: float, extent=ROUGH_EXTENT,
+                  half_width: float = 0.6) -> np.ndarray:
+    """Heights (m) on a grid, rows along x: smoothed seeded noise scaled to ±amplitude.
+
+    The first half metre ramps up from flat so the robot starts on level floor.
+    """
+    from scipy.ndimage import gaussian_filter
+
+    rng = np.random.default_rng(rough.seed)
+    nx = int(round((extent[1] - extent[0]) / spacing)) + 1
+    ny = int(round(2 * half_width / spacing)) + 1
+    noise = rng.standard_normal((nx, ny))
+    heights = gaussian_filter(noise, sigma=rough.wavelength / (4.0 * spacing), mode="wrap")
+    peak = float(np.max(np.abs(heights)))
+    heights *= rough.amplitude / peak if peak > 0 else 0.0
+    x = extent[0] + spacing * np.arange(nx)
+    ramp = np.clip((x - 0.1) / 0.4, 0.0, 1.0)
+    return heights * ramp[:, None]
 
 
 Vector = tuple[float, float, float]
@@ -188,6 +265,8 @@ class World:
         # by the rotor coupling, or None: lets the IMU model skip a read
         self.velocity_before_step: tuple | None = None
         self._clear_tilt = self._tilt_before_touching()
+        self._push: list | None = None  # [steps left, force (world), point (body frame)]
+        self.payload_ids: list[int] = []
         self._settle(tilt)
 
     def _settle(self, tilt: float, steps: int = 100) -> None:
@@ -217,23 +296,64 @@ class World:
 
     # ------------------------------------------------------------- set-up
     def _make_ground(self) -> int:
-        c = self.client
+        """Build the floor (pieces, patches, steps or a heightfield); returns the first id."""
         g = self.ground
-        size = 50.0
-        shape = pb.createCollisionShape(pb.GEOM_BOX, halfExtents=[size, size, 0.05],
-                                        physicsClientId=c)
-        visual = pb.createVisualShape(pb.GEOM_BOX, halfExtents=[size, size, 0.05],
-                                      rgbaColor=[0.82, 0.80, 0.74, 1], physicsClientId=c)
-        orientation = pb.getQuaternionFromEuler([0, -g.slope, 0])
-        # the box's top face passes through the world origin
-        top = np.array(pb.getMatrixFromQuaternion(orientation)).reshape(3, 3) @ [0, 0, 0.05]
-        ground = pb.createMultiBody(0, shape, visual, basePosition=(-top).tolist(),
-                                    baseOrientation=orientation, physicsClientId=c)
-        wheel_radius = self.spec.wheels.radius
-        pb.changeDynamics(ground, -1, lateralFriction=g.friction,
-                          rollingFriction=g.rolling_resistance * wheel_radius,
-                          spinningFriction=g.spinning_friction, physicsClientId=c)
-        return ground
+        self._slope_quaternion = pb.getQuaternionFromEuler([0, -g.slope, 0])
+        self._slope_rotation = np.array(pb.getMatrixFromQuaternion(self._slope_quaternion)
+                                        ).reshape(3, 3)
+        self.floor_ids: list[int] = []
+        if g.rough is not None:
+            self.floor_ids.append(self._make_heightfield(g.rough))
+        else:
+            for start, end, friction in floor_pieces(g):
+                colour = FLOOR_COLOUR if friction == g.friction else PATCH_COLOUR
+                centre = (0.5 * (start + end), 0.0, -0.05)
+                half = (0.5 * (end - start), FLOOR_HALF_WIDTH, 0.05)
+                self.floor_ids.append(self._floor_box(centre, half, colour, friction))
+        for step in g.steps:
+            self.floor_ids.append(self._floor_box(
+                (step.at + step.length / 2, 0.0, step.height / 2),
+                (step.length / 2, FLOOR_HALF_WIDTH, step.height / 2), STEP_COLOUR, g.friction))
+        return self.floor_ids[0]
+
+    def _floor_box(self, centre, half_extents, colour, friction: float) -> int:
+        """A static box given in floor coordinates (x along the slope, z up from it)."""
+        c = self.client
+        shape = pb.createCollisionShape(pb.GEOM_BOX, halfExtents=half_extents, physicsClientId=c)
+        visual = pb.createVisualShape(pb.GEOM_BOX, halfExtents=half_extents, rgbaColor=colour,
+                                      physicsClientId=c)
+        position = (self._slope_rotation @ np.asarray(centre, dtype=float)).tolist()
+        body = pb.createMultiBody(0, shape, visual, basePosition=position,
+                                  baseOrientation=self._slope_quaternion, physicsClientId=c)
+        self._floor_contact(body, friction)
+        return body
+
+    def _floor_contact(self, body: int, friction: float) -> None:
+        g = self.ground
+        # Bullet combines rolling friction as floor.rolling × wheel.friction (1 here):
+        # the rolling resistance coefficient times the wheel radius is a torque per newton.
+        pb.changeDynamics(body, -1, lateralFriction=friction,
+                          rollingFriction=g.rolling_resistance * self.spec.wheels.radius,
+                          spinningFriction=g.spinning_friction, physicsClientId=self.client)
+
+    def _make_heightfield(self, rough: Rough) -> int:
+        c = self.client
+        spacing = max(min(rough.wavelength / 6.0, 0.05), 0.01)
+        heights = rough_heights(rough, spacing)
+        nx, ny = heights.shape
+        shape = pb.createCollisionShape(
+            pb.GEOM_HEIGHTFIELD, meshScale=[spacing, spacing, 1.0],
+            heightfieldData=heights.T.flatten().tolist(),  # x varies fastest
+            numHeightfieldRows=nx, numHeightfieldColumns=ny, physicsClientId=c)
+        # The engine centres a heightfield on its origin, heights included.
+        middle_x = 0.5 * (ROUGH_EXTENT[0] + ROUGH_EXTENT[1])
+        middle_z = 0.5 * (float(heights.max()) + float(heights.min()))
+        position = (self._slope_rotation @ np.array([middle_x, 0.0, middle_z])).tolist()
+        body = pb.createMultiBody(0, shape, basePosition=position,
+                                  baseOrientation=self._slope_quaternion, physicsClientId=c)
+        pb.changeVisualShape(body, -1, rgbaColor=FLOOR_COLOUR, physicsClientId=c)
+        self._floor_contact(body, self.ground.friction)
+        return body
 
     def _spawn(self, tilt: float) -> int:
         c = self.client
@@ -318,6 +438,9 @@ class World:
         inv_dt = 1.0 / dt
         ax, ay, az = self._axle_axis
         last = self._last_rates
+        if self._push is not None:
+            self._advance_pushed(steps, drive)
+            return
         for _ in range(steps):
             left, right = read(robot, joints, physicsClientId=client)
             rate_left, rate_right = left[1], right[1]
@@ -341,6 +464,20 @@ class World:
                   physicsClientId=client)
             step(physicsClientId=client)
         self._last_rates = last
+
+    def _advance_pushed(self, steps: int, drive) -> None:
+        """Step one at a time while a push lasts (the force is re-applied every step)."""
+        for _ in range(steps):
+            if self._push is not None:
+                left, force, point = self._push
+                state = self.body_state()
+                at = _add(state.axle, state.to_world(point))
+                pb.applyExternalForce(self.robot_id, -1, force, at, pb.WORLD_FRAME,
+                                      physicsClientId=self.client)
+                self._push = [left - 1, force, point] if left > 1 else None
+            pushed, self._push = self._push, None
+            self.advance(1, drive)
+            self._push = pushed
 
     def _rotor_coupling(self, torque_left: float, torque_right: float,
                         rate_left: float, rate_right: float) -> tuple[float, float]:
@@ -450,9 +587,51 @@ class World:
 
     def body_on_ground(self) -> bool:
         """True when any part of the body (not a wheel) touches the floor."""
-        contacts = pb.getContactPoints(self.robot_id, self.ground_id, -1, -1,
-                                       physicsClientId=self.client)
-        return len(contacts) > 0
+        for floor in self.floor_ids:
+            if pb.getContactPoints(self.robot_id, floor, -1, -1, physicsClientId=self.client):
+                return True
+        return False
+
+    # ------------------------------------------------------------- disturbances
+    def push(self, force: Vector, body_point: Vector, steps: int) -> None:
+        """Push the body with ``force`` (N, world axes) at a point fixed in the body
+        (m, body frame) for the next ``steps`` physics steps."""
+        self._push = [int(steps), tuple(force), tuple(body_point)]
+
+    def set_friction(self, friction: float) -> None:
+        """Change the wheel-on-floor friction everywhere."""
+        for floor in self.floor_ids:
+            pb.changeDynamics(floor, -1, lateralFriction=friction, physicsClientId=self.client)
+
+    def add_payload(self, mass: float, size: Vector, body_point: Vector) -> int:
+        """Fix a solid box (kg, m) to the body with its centre at ``body_point`` (body frame)."""
+        c = self.client
+        state = self.body_state()
+        half = [0.5 * v for v in size]
+        shape = pb.createCollisionShape(pb.GEOM_BOX, halfExtents=half, physicsClientId=c)
+        visual = pb.createVisualShape(pb.GEOM_BOX, halfExtents=half,
+                                      rgbaColor=[0.85, 0.33, 0.1, 1], physicsClientId=c)
+        centre = _add(state.axle, state.to_world(body_point))
+        link_quat = pb.multiplyTransforms([0, 0, 0], state.com_orientation, [0, 0, 0],
+                                          pb.invertTransform([0, 0, 0],
+                                                             self._inertial_quaternion)[1])[1]
+        payload = pb.createMultiBody(mass, shape, visual, basePosition=centre,
+                                     baseOrientation=link_quat, physicsClientId=c)
+        pb.resetBaseVelocity(payload, state.velocity, state.angular_velocity, physicsClientId=c)
+        # the constraint's parent frame is the body's centre-of-mass (inertial) frame
+        local = self._inertial_rotation.T @ (np.asarray(body_point) - self._com_local)
+        inverse = pb.invertTransform([0, 0, 0], self._inertial_quaternion)[1]
+        joint = pb.createConstraint(self.robot_id, -1, payload, -1, pb.JOINT_FIXED, [0, 0, 0],
+                                    local.tolist(), [0, 0, 0], inverse, physicsClientId=c)
+        pb.changeConstraint(joint, maxForce=1e6, physicsClientId=c)
+        for link in range(-1, pb.getNumJoints(self.robot_id, physicsClientId=c)):
+            pb.setCollisionFilterPair(self.robot_id, payload, link, -1, 0, physicsClientId=c)
+        self.payload_ids.append(payload)
+        return payload
+
+    def payload_mass(self) -> float:
+        return sum(pb.getDynamicsInfo(p, -1, physicsClientId=self.client)[0]
+                   for p in self.payload_ids)
 
     def gravity_vector(self) -> Vector:
         return (0.0, 0.0, -self.gravity)
