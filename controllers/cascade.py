@@ -49,10 +49,10 @@ class Controller:
         # design gives (speed ~0.3, position ~0.12) for all our demo robots.
         self.speed_kp = float(config.get("speed_kp", 0.3))
         self.position_kp = float(config.get("position_kp", 0.12))
-        self.max_target = float(config.get("max_target_tilt", math.radians(8.0)))
+        self.max_target = float(config.get("max_target_tilt", math.radians(5.0)))
         self.speed_filter = float(config.get("speed_filter", 0.05))
         self.turn_kp = float(config.get("turn_kp", 0.05))
-        self.tilt = ComplementaryTilt(float(config.get("filter_time_constant", 0.5)))
+        self.tilt = ComplementaryTilt(float(config.get("filter_time_constant", 1.0)))
         self.radius = robot.wheel_radius
         self.counts_per_rev = robot.counts_per_rev
         self.reset()
@@ -61,17 +61,32 @@ class Controller:
         self.tilt.reset()
         self.last_x = None
         self.speed = 0.0
+        self.acceleration = 0.0
         self.x_target = 0.0
 
     def step(self, r):
-        tilt = self.tilt.update_from_reading(r)
+        # The accelerometer feels the robot's own acceleration as well as gravity:
+        # take the acceleration the encoders see out of it before reading a tilt.
+        # When the body swings hard (a shove, a bump) the accelerometer reads far from
+        # 1 g and its tilt is meaningless: trust the gyro alone until it settles.
+        accel_x = r.accel[0] - self.acceleration
+        magnitude = math.sqrt(accel_x**2 + r.accel[1] ** 2 + r.accel[2] ** 2)
+        if abs(magnitude - GRAVITY) < 0.1 * GRAVITY and self.tilt.started:
+            accel_tilt = math.atan2(-accel_x, r.accel[2])
+        elif self.tilt.started:
+            accel_tilt = self.tilt.angle + r.gyro[1] * r.dt  # no correction this tick
+        else:
+            accel_tilt = math.atan2(-accel_x, r.accel[2])
+        tilt = self.tilt.update(r.gyro[1], accel_tilt, r.dt)
         # Wheel turn relative to the body plus the body's tilt = the wheel's turn on the floor.
         wheel = 2.0 * math.pi * 0.5 * (r.ticks[0] + r.ticks[1]) / self.counts_per_rev
         x = self.radius * (wheel + tilt)
         if self.last_x is not None:
             raw = (x - self.last_x) / r.dt
             blend = r.dt / (self.speed_filter + r.dt)
+            previous = self.speed
             self.speed += blend * (raw - self.speed)
+            self.acceleration += blend * ((self.speed - previous) / r.dt - self.acceleration)
         self.last_x = x
         self.x_target += r.setpoint.speed * r.dt
         target = -(self.speed_kp * (self.speed - r.setpoint.speed)

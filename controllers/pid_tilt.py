@@ -51,8 +51,8 @@ class Controller:
         self.kp = float(config.get("kp", kp))
         self.ki = float(config.get("ki", 0.0))
         self.kd = float(config.get("kd", kd))
-        # 0.3 rad of lean per m/s: the ratio an LQR design gives for all our demo robots
-        self.speed_kd = float(config.get("speed_kd", 0.3 * self.kp))
+        # 0.2 of kp per m/s: below the ~0.3 an LQR design gives, which saturates tall robots
+        self.speed_kd = float(config.get("speed_kd", 0.2 * self.kp))
         self.turn_kp = float(config.get("turn_kp", 0.05))
         self.radius = robot.wheel_radius
         self.counts_per_rev = robot.counts_per_rev
@@ -66,15 +66,30 @@ class Controller:
         self.pid.reset()
         self.last_x = None
         self.speed = 0.0
+        self.acceleration = 0.0
 
     def step(self, r):
-        tilt = self.tilt.update_from_reading(r)
+        # The accelerometer feels the robot's own acceleration as well as gravity:
+        # take the acceleration the encoders see out of it before reading a tilt.
+        # When the body swings hard (a shove, a bump) the accelerometer reads far from
+        # 1 g and its tilt is meaningless: trust the gyro alone until it settles.
+        accel_x = r.accel[0] - self.acceleration
+        magnitude = math.sqrt(accel_x**2 + r.accel[1] ** 2 + r.accel[2] ** 2)
+        if abs(magnitude - GRAVITY) < 0.1 * GRAVITY and self.tilt.started:
+            accel_tilt = math.atan2(-accel_x, r.accel[2])
+        elif self.tilt.started:
+            accel_tilt = self.tilt.angle + r.gyro[1] * r.dt  # no correction this tick
+        else:
+            accel_tilt = math.atan2(-accel_x, r.accel[2])
+        tilt = self.tilt.update(r.gyro[1], accel_tilt, r.dt)
         pitch_rate = r.gyro[1]
         # distance on the floor = wheel radius * (wheel turn relative to body + body tilt)
         wheel = math.pi * (r.ticks[0] + r.ticks[1]) / self.counts_per_rev
         x = self.radius * (wheel + tilt)
         if self.last_x is not None:
+            previous = self.speed
             self.speed += 0.2 * ((x - self.last_x) / r.dt - self.speed)  # light low-pass
+            self.acceleration += 0.1 * ((self.speed - previous) / r.dt - self.acceleration)
         self.last_x = x
         drive = self.pid.update(0.0, tilt, r.dt, measured_rate=pitch_rate)
         drive += self.speed_kd * self.speed

@@ -252,7 +252,7 @@ def robot_from_dict(
     try:
         return RobotSpec.model_validate(data)
     except ValidationError as err:
-        raise RobotFileError(source, [_describe_error(e) for e in err.errors()]) from None
+        raise RobotFileError(source, [describe_error(e) for e in err.errors()]) from None
 
 
 def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:
@@ -283,13 +283,14 @@ def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:
     return data
 
 
-def _describe_error(err: dict) -> str:
+def describe_error(err: dict, root: type[BaseModel] | None = None) -> str:
+    """One plain line for one pydantic error: the dotted key, the problem, the allowed range."""
     loc = err.get("loc", ())
     key = _dotted(loc)
     kind = err.get("type", "")
     if kind == "extra_forbidden":
         parent = loc[:-1]
-        known = _fields_at(parent)
+        known = _fields_at(parent, root or RobotSpec)
         hint = nearest_key(str(loc[-1]), known)
         allowed = f"did you mean '{hint}'?" if hint else "allowed: " + ", ".join(known)
         return f"{key}: unknown key ({allowed})"
@@ -330,9 +331,9 @@ def _dotted(loc: tuple) -> str:
     return out
 
 
-def _fields_at(loc: tuple) -> list[str]:
+def _fields_at(loc: tuple, root: type[BaseModel]) -> list[str]:
     """Field names of the section at ``loc`` (for 'did you mean')."""
-    model: Any = RobotSpec
+    model: Any = root
     for part in loc:
         if isinstance(part, int):
             continue

@@ -166,18 +166,22 @@ class Simulation:
             step = 0
             x = 0.0
             last_speed = 0.0
-            prev_mount_velocity = None  # mount-point velocity one step before a sample
-            sample_truth = ((0.0, 0.0, 0.0), (0.0, 0.0, 0.0))
             last_sample_index = -1
             state = world.body_state()
+            # true (rate, specific force) of IMU samples taken but not yet seen, by step;
+            # the first sample has no earlier velocity, so no acceleration
+            truths = {0: self._imu_truth(state, mount, gravity, None, dt)}
+            sample_truth = truths[0]
             for tick in range(n_ticks + 1):
                 t = tick * self.period
                 if timeline is not None:
-                    timeline.fire(t, self, world, drive, imu, encoders, reading)
+                    timeline.fire(t, x, world, drive, imu, encoders)
                 # -- the IMU sample the controller sees now
                 sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
-                if sample_at == step:
-                    sample_truth = self._imu_truth(state, mount, gravity, prev_mount_velocity, dt)
+                if sample_at in truths:
+                    sample_truth = truths[sample_at]
+                    if len(truths) > 1:
+                        truths = {k: v for k, v in truths.items() if k >= sample_at}
                 sample_index = math.floor(sample_at * dt * imu_rate + 1e-9)
                 elapsed = max(sample_index - last_sample_index, 0)
                 last_sample_index = sample_index
@@ -224,8 +228,16 @@ class Simulation:
                 # -- physics until the next tick, stopping where something is due
                 target = step + spt
                 next_sample = sample_step(target, dt, imu_rate, sensor_latency_steps)
-                if next_sample - 1 == step:
-                    prev_mount_velocity = state.point_velocity(mount)
+                # With sensor latency the newest sample of this period may be seen only
+                # a tick later (when none falls between the tick and tick + latency).
+                newest = (sample_step(target, dt, imu_rate, 0.0) if sensor_latency_steps
+                          else next_sample)
+                due = [n for n in {next_sample, newest} if n > step]
+                before = {n: state.point_velocity(mount) for n in due if n - 1 == step}
+                # stop one step before a sample (its velocity) and at it; at the tick the
+                # coupled world remembers the velocity before its last step
+                stops = sorted({p for n in due if not (coupled and n == target)
+                                for p in (n - 1, n) if step < p < target})
                 while step < target:
                     while pending and pending[0][0] <= step:
                         _, left, right = pending.popleft()
@@ -233,20 +245,24 @@ class Simulation:
                     stop = target
                     if pending and pending[0][0] < stop:
                         stop = pending[0][0]
-                    if step < next_sample - 1 < stop and not (coupled and next_sample == target):
-                        stop = next_sample - 1
-                    elif step < next_sample < stop:
-                        stop = next_sample
+                    for p in stops:
+                        if step < p:
+                            stop = min(stop, p)
+                            break
                     world.advance(stop - step, drive)
                     step = stop
-                    if step == next_sample - 1:
-                        prev_mount_velocity = world.body_state().point_velocity(mount)
-                    elif step == next_sample and step != target:
-                        sample_truth = self._imu_truth(world.body_state(), mount, gravity,
-                                                       prev_mount_velocity, dt)
+                    if step != target and (step in due or step + 1 in due):
+                        here = world.body_state()
+                        if step + 1 in due:
+                            before[step + 1] = here.point_velocity(mount)
+                        if step in due:
+                            truths[step] = self._imu_truth(here, mount, gravity,
+                                                           before.get(step), dt)
                 state = world.body_state()
-                if coupled and next_sample == target:
-                    prev_mount_velocity = world.previous_point_velocity(state, mount)
+                if target in due:
+                    prev = (world.previous_point_velocity(state, mount)
+                            if coupled and target not in before else before.get(target))
+                    truths[target] = self._imu_truth(state, mount, gravity, prev, dt)
         except ControllerError as err:
             status, message = STATUS_CONTROLLER_ERROR, str(err)
             if folder is not None:
@@ -394,10 +410,13 @@ def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
     sim = Simulation(spec, settings, ground=ground, timeline=timeline)
     if folder is not None:
         from .urdf import robot_urdf
+        from .world import ground_record
 
         folder.mkdir(parents=True, exist_ok=True)
-        write_yaml(folder / "run.yaml", run_record(spec, replace(settings), sim.rate_hz,
-                                                   extra_record))
+        extra = dict(extra_record or {})
+        extra["ground"] = ground_record(ground or Ground(
+            friction=spec.wheels.friction, rolling_resistance=spec.wheels.rolling_resistance))
+        write_yaml(folder / "run.yaml", run_record(spec, replace(settings), sim.rate_hz, extra))
         write_yaml(folder / "robot.yaml", spec.to_si_dict())
         (folder / "robot.urdf").write_text(robot_urdf(spec), encoding="utf-8")
     return sim.run(folder)

@@ -36,6 +36,8 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
         spec = plan.robot(spec)
         if not duration_given:
             settings = replace(settings, duration=plan.duration)
+        if plan.tilt and not settings.tilt:
+            settings = replace(settings, tilt=plan.tilt)
     settings = replace(settings, test_name=test_name)
     if not write:
         folder = None

@@ -94,6 +94,34 @@ class Ground:
     rough: Rough | None = None
 
 
+def ground_record(ground: Ground) -> dict:
+    """Plain data describing a Ground (SI units), for run.yaml and replay."""
+    return {
+        "friction": ground.friction,
+        "rolling_resistance": ground.rolling_resistance,
+        "slope_rad": ground.slope,
+        "patches": [[p.start, p.end, p.friction] for p in ground.patches],
+        "steps": [[s.at, s.height, s.length] for s in ground.steps],
+        "rough": None if ground.rough is None else [ground.rough.amplitude,
+                                                    ground.rough.wavelength, ground.rough.seed],
+    }
+
+
+def ground_from_record(data: dict | None) -> Ground | None:
+    """The Ground that :func:`ground_record` described (None if no record)."""
+    if not data:
+        return None
+    rough = data.get("rough")
+    return Ground(
+        friction=float(data.get("friction", 0.9)),
+        rolling_resistance=float(data.get("rolling_resistance", 0.0)),
+        slope=float(data.get("slope_rad", 0.0)),
+        patches=tuple(Patch(*p) for p in data.get("patches", [])),
+        steps=tuple(Step(*s) for s in data.get("steps", [])),
+        rough=None if not rough else Rough(rough[0], rough[1], int(rough[2])),
+    )
+
+
 FLOOR_COLOUR = (0.82, 0.80, 0.74, 1.0)
 PATCH_COLOUR = (0.55, 0.72, 0.86, 1.0)
 STEP_COLOUR = (0.45, 0.40, 0.36, 1.0)
