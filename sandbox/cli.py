@@ -315,6 +315,139 @@ def run(
     folder = out
     result = run_once(spec, settings, test=test, folder=folder, default_root=Path("runs"),
                       label=_controller_label(controller), duration_given=duration is not None,
-                      video=video, plots=plots)
+                      video=False, plots=plots)
+    if video and result.trace["t_s"].size > 1:
+        _render_with_bar(result.folder, 30.0, (640, 480), None)
     _print_run(result, result.folder)
+    raise typer.Exit(_exit_code(result))
+
+
+def _settings_from(controller: str, config: dict, duration: float | None, tilt: float,
+                   seed: int, rate: float | None):
+    from .runner import RunSettings
+
+    return RunSettings(controller=controller, config=config,
+                       duration=10.0 if duration is None else duration,
+                       tilt=math.radians(tilt), seed=seed, rate_hz=rate)
+
+
+@app.command()
+@handles_errors
+def suite(
+    robot: RobotArg,
+    controller: Annotated[str, typer.Argument(help="Controller script: file.py or file.py:Class.")],
+    seed: Annotated[int, typer.Option("--seed", help="Seed for every random source.")] = 0,
+    set_: Annotated[list[str] | None, typer.Option(
+        "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")
+    ] = None,
+    config_file: Annotated[Path | None, typer.Option(
+        "--config", help="Controller config file (YAML mapping of names to values).")] = None,
+    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    workers: Annotated[int | None, typer.Option(
+        "--workers", help="Parallel processes (default: all cores).")] = None,
+    out: Annotated[Path | None, typer.Option(
+        "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
+    video: Annotated[bool, typer.Option("--video", help="Render a video of every test.")] = False,
+) -> None:
+    """Run every built-in disturbance test; a pass/fail table, suite.json and report.html."""
+    from .control import load_controller_class
+    from .events import BUILTIN_NAMES
+    from .record import default_run_dir
+    from .robot import load_robot
+    from .suite import run_suite
+
+    robot_sets, config_sets = _split_sets(set_)
+    spec = load_robot(robot, robot_sets)
+    config = {**_load_config_file(config_file), **config_sets}
+    settings = _settings_from(controller, config, None, 0.0, seed, rate)
+    load_controller_class(controller)  # a broken script stops here, before any worker starts
+    label = _controller_label(controller)
+    folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
+    with typer.progressbar(length=len(BUILTIN_NAMES), label="tests", file=sys.stderr) as bar:
+        result = run_suite(spec, settings, folder, video=video, label=label, workers=workers,
+                           progress=lambda _name: bar.update(1))
+    rows = []
+    for test in result["tests"]:
+        failed = "; ".join(c["label"] for c in test["checks"] if not c["passed"])
+        f = test["figures"]
+        rows.append((test["name"], "PASS" if test["passed"] else "FAIL", test["status"],
+                     "-" if f["max_abs_pitch_deg"] is None else f"{f['max_abs_pitch_deg']:.1f}",
+                     "-" if f["drift_m"] is None else f"{f['drift_m']:+.2f}", failed or "-"))
+    typer.echo(table(rows, ("test", "verdict", "status", "max tilt deg", "drift m",
+                            "failed checks")))
+    passed = sum(t["passed"] for t in result["tests"])
+    typer.echo(f"{passed} of {len(rows)} passed; report: {folder / 'report.html'}")
+    raise typer.Exit(EXIT_OK if result["passed"] else EXIT_FELL)
+
+
+@app.command()
+@handles_errors
+def render(
+    run_dir: Annotated[Path, typer.Argument(help="A run folder written by `upright run`.")],
+    fps: Annotated[float, typer.Option("--fps", help="Frames per second.")] = 30.0,
+    size: Annotated[str, typer.Option(
+        "--size", help="WIDTHxHEIGHT in pixels, each divisible by 16.")] = "640x480",
+    workers: Annotated[int | None, typer.Option(
+        "--workers", help="Parallel render processes (default: all cores).")] = None,
+) -> None:
+    """Render video.mp4 of a recorded run by replaying its trace."""
+    if not (run_dir / "trace.csv").is_file():
+        raise BadInput(f"{run_dir}: not a run folder (no trace.csv)")
+    try:
+        width, height = (int(v) for v in size.lower().split("x"))
+    except ValueError:
+        raise BadInput(f"--size {size!r}: expected WIDTHxHEIGHT, e.g. 640x480") from None
+    path = _render_with_bar(run_dir, fps, (width, height), workers)
+    typer.echo(f"wrote {path}")
+
+
+def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
+                     workers: int | None) -> Path:
+    from .render import render_run
+
+    with typer.progressbar(length=1, label="frames", file=sys.stderr) as bar:
+        state = {"done": 0}
+
+        def progress(done: int, total: int) -> None:
+            bar.length = total
+            bar.update(done - state["done"])
+            state["done"] = done
+
+        return render_run(run_dir, fps=fps, size=size, workers=workers, progress=progress)
+
+
+def _examples_root() -> Path:
+    """The folder holding robots/ and controllers/: here, or beside the package's source."""
+    for root in (Path.cwd(), Path(__file__).resolve().parent.parent):
+        if (root / "robots" / "shelf-runner.yaml").is_file() and (
+                root / "controllers" / "cascade.py").is_file():
+            return root
+    raise BadInput("the bundled examples (robots/, controllers/) were not found: run "
+                   "`upright demo` from a clone of the upright repository")
+
+
+@app.command()
+@handles_errors
+def demo(
+    out: Annotated[Path | None, typer.Option("--out", help="Run folder for the demo.")] = None,
+    video: Annotated[bool, typer.Option("--video/--no-video", help="Render the video.")] = True,
+) -> None:
+    """Run a bundled robot and controller through the push test and write a video."""
+    from .robot import load_robot
+    from .session import run_once
+
+    root = _examples_root()
+    robot_file = root / "robots" / "shelf-runner.yaml"
+    controller = str(root / "controllers" / "cascade.py")
+    typer.echo(f"robot {robot_file.relative_to(root)}, controller controllers/cascade.py, "
+               "test push (three shoves at the top of the frame)")
+    spec = load_robot(robot_file)
+    settings = _settings_from(controller, {}, None, 0.0, 0, None)
+    result = run_once(spec, settings, test="push", folder=out, default_root=Path("runs"),
+                      label="cascade", plots=True, video=False)
+    if video and result.trace["t_s"].size > 1:
+        _render_with_bar(result.folder, 30.0, (640, 480), None)
+    _print_run(result, result.folder)
+    typer.echo("next: open video.mp4 and plots.png there; then try "
+               "`upright suite robots/shelf-runner.yaml controllers/cascade.py`")
     raise typer.Exit(_exit_code(result))

@@ -1,0 +1,94 @@
+"""report.html: one self-contained page for a suite (no network, no scripts, no web fonts).
+
+Plots and videos are embedded as data URIs so the page can be mailed or
+shared on its own.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+from pathlib import Path
+from typing import Any
+
+STYLE = """
+body { font-family: sans-serif; margin: 2em auto; max-width: 60em; color: #222; }
+h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 2em; }
+table { border-collapse: collapse; margin: 1em 0; }
+th, td { border: 1px solid #bbb; padding: 0.3em 0.6em; text-align: left; }
+th { background: #eee; }
+.pass { color: #176117; font-weight: bold; } .fail { color: #a11; font-weight: bold; }
+img, video { max-width: 100%; border: 1px solid #ccc; }
+.small { color: #555; font-size: 0.9em; }
+"""
+
+
+def _data_uri(path: Path, mime: str) -> str | None:
+    if not path.is_file():
+        return None
+    return f"data:{mime};base64," + base64.b64encode(path.read_bytes()).decode("ascii")
+
+
+def _verdict(passed: bool) -> str:
+    return '<span class="pass">PASS</span>' if passed else '<span class="fail">FAIL</span>'
+
+
+def _number(value: Any, digits: int = 3) -> str:
+    return "-" if value is None else f"{value:.{digits}g}"
+
+
+def render_report(folder: Path, suite: dict[str, Any]) -> str:
+    """The HTML text of a suite's report."""
+    e = html.escape
+    rows = []
+    for test in suite["tests"]:
+        f = test["figures"]
+        failed = [c["label"] for c in test["checks"] if not c["passed"]]
+        rows.append(
+            f"<tr><td><a href=\"#{e(test['name'])}\">{e(test['name'])}</a></td>"
+            f"<td>{_verdict(test['passed'])}</td><td>{e(test['status'])}</td>"
+            f"<td>{_number(f.get('max_abs_pitch_deg'))}</td>"
+            f"<td>{_number(f.get('rms_pitch_deg'))}</td><td>{_number(f.get('drift_m'))}</td>"
+            f"<td>{e('; '.join(failed)) or '-'}</td></tr>")
+    sections = []
+    for test in suite["tests"]:
+        sub = folder / test["folder"]
+        checks = "".join(
+            f"<tr><td>{e(c['label'])}</td><td>{e(str(c['measured']))}</td>"
+            f"<td>{e(str(c['limit']))}</td><td>{_verdict(c['passed'])}</td></tr>"
+            for c in test["checks"])
+        parts = [f'<h2 id="{e(test["name"])}">{e(test["name"])} {_verdict(test["passed"])}</h2>']
+        if test.get("message"):
+            parts.append(f'<p class="small">{e(test["message"])}</p>')
+        parts.append("<table><tr><th>check</th><th>measured</th><th>limit</th><th></th></tr>"
+                     f"{checks}</table>")
+        video = _data_uri(sub / "video.mp4", "video/mp4")
+        if video:
+            parts.append(f'<video controls muted src="{video}"></video>')
+        plot = _data_uri(sub / "plots.png", "image/png")
+        if plot:
+            parts.append(f'<img alt="plots of {e(test["name"])}" src="{plot}">')
+        sections.append("\n".join(parts))
+    passed = sum(t["passed"] for t in suite["tests"])
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<title>upright suite: {e(suite['robot'])}</title>
+<style>{STYLE}</style></head>
+<body>
+<h1>Disturbance suite: {e(suite['robot'])} with {e(Path(suite['controller']).name)}</h1>
+<p>{passed} of {len(suite['tests'])} tests passed {_verdict(suite['passed'])}.
+<span class="small">Seed {suite['seed']}. Angles in degrees, distances in metres.</span></p>
+<table id="summary">
+<tr><th>test</th><th>verdict</th><th>status</th><th>max |tilt|</th><th>rms tilt</th>
+<th>drift</th><th>failed checks</th></tr>
+{''.join(rows)}
+</table>
+{''.join(sections)}
+</body></html>
+"""
+
+
+def write_report(folder: Path, suite: dict[str, Any]) -> Path:
+    path = folder / "report.html"
+    path.write_text(render_report(folder, suite), encoding="utf-8")
+    return path

@@ -1,0 +1,84 @@
+"""The standard battery: every built-in test on one robot and controller, in parallel.
+
+Each test is an ordinary run folder inside the suite folder; ``suite.json``
+collects every test's status and figures and ``report.html`` shows them.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+from .events import BUILTIN_NAMES
+from .record import write_json
+from .robot import RobotSpec
+from .runner import RunSettings
+
+
+def _run_test(spec_data: dict, settings: RunSettings, test: str, folder: Path,
+              video: bool, label: str) -> dict[str, Any]:
+    """One test in a worker process; returns its summary (JSON-ready)."""
+    from .robot import robot_from_dict
+    from .session import run_once
+
+    spec = robot_from_dict(spec_data, "<suite robot>")
+    result = run_once(spec, settings, test=test, folder=folder, label=label, video=False)
+    if video and result.trace["t_s"].size > 1:
+        from .render import render_run
+
+        render_run(folder, workers=1)
+    return {"test": test, "folder": folder.name, "status": result.status,
+            "message": result.message, "summary": result.summary}
+
+
+def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
+              tests: tuple[str, ...] = BUILTIN_NAMES, workers: int | None = None,
+              video: bool = False, label: str = "controller",
+              progress: Callable[[str], None] | None = None) -> dict[str, Any]:
+    """Run ``tests`` (built-in names) into ``folder``; write suite.json and report.html."""
+    folder.mkdir(parents=True, exist_ok=True)
+    workers = max(1, min(workers or os.cpu_count() or 1, len(tests)))
+    spec_data = spec.to_si_dict()
+    results: dict[str, dict[str, Any]] = {}
+    jobs = {test: (spec_data, replace(settings), test, folder / test, video, label)
+            for test in tests}
+    if workers == 1:
+        for test, args in jobs.items():
+            results[test] = _run_test(*args)
+            if progress:
+                progress(test)
+    else:
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            futures = {pool.submit(_run_test, *args): test for test, args in jobs.items()}
+            for future in as_completed(futures):
+                results[futures[future]] = future.result()
+                if progress:
+                    progress(futures[future])
+    ordered = [results[t] for t in tests]
+    suite = {
+        "robot": spec.name,
+        "controller": settings.controller,
+        "seed": settings.seed,
+        "passed": all(_passed(r) for r in ordered),
+        "tests": [{"name": r["test"], "status": r["status"], "passed": _passed(r),
+                   "folder": r["folder"], "message": r["message"],
+                   "checks": r["summary"].get("test_result", {}).get("checks", []),
+                   "figures": {k: r["summary"].get(k) for k in (
+                       "max_abs_pitch_deg", "rms_pitch_deg", "drift_m", "saturation_fraction",
+                       "fell_at_s", "duration_s")}}
+                  for r in ordered],
+    }
+    write_json(folder / "suite.json", suite)
+    from .report import write_report
+
+    write_report(folder, suite)
+    return suite
+
+
+def _passed(result: dict[str, Any]) -> bool:
+    verdict = result["summary"].get("test_result")
+    return bool(verdict and verdict.get("passed")) and result["status"] == "completed"
