@@ -93,8 +93,9 @@ class TraceWriter:
             text = fmt % row
             if names:
                 text += "," + ",".join(_cell(logs.get(n)) for n in names)
-                if len(logs) > len(names) or any(k not in names for k in logs):
-                    self.dropped_channels.update(k for k in logs if k not in names)
+            # also when the first block logged nothing: a later channel is still dropped
+            if len(logs) > len(names) or any(k not in names for k in logs):
+                self.dropped_channels.update(k for k in logs if k not in names)
             lines.append(text)
             for column, value in zip(self.columns, row):
                 column.append(value)

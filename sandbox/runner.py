@@ -145,8 +145,12 @@ class Simulation:
 
         if folder is not None:
             folder.mkdir(parents=True, exist_ok=True)
-        writer = TraceWriter(folder / "trace.csv") if folder is not None else _MemoryTrace()
         world = self.world_factory(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
+        try:
+            writer = TraceWriter(folder / "trace.csv") if folder is not None else _MemoryTrace()
+        except OSError:
+            world.close()
+            raise
         drive = DriveTrain(spec)
         imu = Imu(spec.imu, seed=s.seed)
         encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)
