@@ -11,26 +11,39 @@ import control
 import numpy as np
 import pytest
 import scipy.linalg
+import scipy.signal
+import yaml
 
 from sandbox.analysis import (
+    RAW_GAIN_KEYS,
     STATE_NAMES,
     AnalysisError,
     PlanarParams,
+    analysis_table,
     analyze,
     cart_pendulum_model,
+    config_yaml,
     controllability_rank,
+    controller_stem,
     default_weights,
+    delayed_spectral_radius,
+    dlqr,
     duty_input_model,
+    emit_config,
+    equivalent_poles,
     fall_time_constant,
     lqr,
     open_loop_poles,
     rate_warning,
     suggest_gains,
     torque_input_model,
+    zoh_discretise,
 )
+from sandbox.control import RobotFacts, load_controller_class, make_controller
 from sandbox.robot import load_robot
 
-ROBOT_FILES = sorted((Path(__file__).resolve().parents[1] / "robots").glob("*.yaml"))
+REPO = Path(__file__).resolve().parents[1]
+ROBOT_FILES = sorted((REPO / "robots").glob("*.yaml"))
 
 # SOURCES §1 worked example: m_b = 1, I_b = 0.01, l = 0.10, m_w = 0.05, r = 0.04,
 # I_w = ½ m_w r² = 4e-5, g = 9.81; input = total wheel torque.
@@ -264,10 +277,11 @@ def test_no_drive_voltage_is_uncontrollable():
 
 
 def test_cascade_and_pid_expand_to_lqr_law(shelf_runner):
-    """The suggested gains reproduce u = −K s exactly (algebraic identity, checked on
-    seeded random states): cascade fully, pid_tilt on its pitch and pitch-rate terms."""
+    """The suggested gains reproduce u = −K s of the discrete design (algebraic identity,
+    checked on seeded random states): cascade fully, pid_tilt on its speed, pitch and
+    pitch-rate terms (it has no position term)."""
     result = analyze(shelf_runner)
-    K = np.array(result["lqr_gain"]).ravel()
+    K = np.array(result["lqr_gain_discrete"]).ravel()
     cascade = result["suggested_config"]["cascade"]
     pid = result["suggested_config"]["pid_tilt"]
     states = np.random.default_rng(seed=7).normal(size=(50, 4)) * [0.3, 0.5, 0.1, 1.0]
@@ -276,11 +290,25 @@ def test_cascade_and_pid_expand_to_lqr_law(shelf_runner):
         duty = cascade["tilt_kp"] * (pitch - target) + cascade["tilt_kd"] * pitch_rate
         lqr_duty = -K @ [x, v, pitch, pitch_rate]
         assert duty == pytest.approx(lqr_duty, rel=1e-12, abs=1e-12), "cascade vs -K s (duty)"
-        pid_duty = pid["kp"] * pitch + pid["kd"] * pitch_rate
-        assert pid_duty == pytest.approx(-K[2:] @ [pitch, pitch_rate], rel=1e-12, abs=1e-12)
+        pid_duty = pid["kp"] * pitch + pid["kd"] * pitch_rate + pid["speed_kd"] * v
+        assert pid_duty == pytest.approx(-K[1:] @ [v, pitch, pitch_rate], rel=1e-12, abs=1e-12)
     assert pid["kp"] > 0 and pid["kd"] > 0, "forward lean must drive forward (positive duty)"
+    assert pid["speed_kd"] > 0, "rolling forward must ask for more forward duty (lean back)"
     assert pid["ki"] == 0.0
     assert 0.2 <= pid["filter_time_constant"] <= 2.0
+
+
+def test_pid_tilt_law_leaves_only_drift(every_robot):
+    """Dropping the position gain (pid_tilt has none) leaves the discrete closed loop
+    stable but for one eigenvalue at z = 1: position drifts, nothing else grows [derived:
+    x does not enter the dynamics, so its column of Ad − Bd K is e₁]."""
+    result = analyze(every_robot)
+    Ad, Bd = np.array(result["A_discrete"]), np.array(result["B_discrete"])
+    pid = result["suggested_config"]["pid_tilt"]
+    K = np.array([[0.0, -pid["speed_kd"], -pid["kp"], -pid["kd"]]])
+    radii = np.sort(np.abs(np.linalg.eigvals(Ad - Bd @ K)))
+    assert radii[-1] == pytest.approx(1.0, abs=1e-9), "position eigenvalue |z| (drift)"
+    assert radii[-2] < 1.0, f"{every_robot.name}: pid_tilt loop unstable, |z| = {radii}"
 
 
 def test_suggest_gains_needs_a_pitch_gain():
@@ -358,3 +386,202 @@ def test_params_from_spec_and_validation(shelf_runner):
         replace(WORKED, body_mass=0.0)
     with pytest.raises(AnalysisError, match="wheel_inertia"):
         replace(WORKED, wheel_inertia=-1.0)
+
+
+# ------------------------------------------------------------------ discrete design
+
+
+def test_analyze_discrete_design_keys(every_robot):
+    """DESIGN.md contract kept: ``lqr_gain`` is the continuous design (equal to
+    control.lqr); ``lqr_gain_discrete`` equals control.dlqr on the ZOH model at the rate
+    (python-control, rel 1e-6) and ``suggested_config`` comes from it."""
+    result = json.loads(json.dumps(analyze(every_robot, rate_hz=200.0), allow_nan=False))
+    A, B = np.array(result["A"]), np.array(result["B"])
+    Q, R = np.array(result["lqr_q"]), np.array(result["lqr_r"])
+    K_cont, _, _ = control.lqr(A, B, Q, R)
+    np.testing.assert_allclose(result["lqr_gain"], K_cont, rtol=1e-6, err_msg="continuous K")
+    Ad, Bd = np.array(result["A_discrete"]), np.array(result["B_discrete"])
+    K_ref, _, E_ref = control.dlqr(Ad, Bd, Q, R)
+    np.testing.assert_allclose(result["lqr_gain_discrete"], K_ref, rtol=1e-6,
+                               err_msg="discrete K vs control.dlqr")
+    z = np.array([complex(re, im) for re, im in result["closed_loop_poles_discrete"]])
+    np.testing.assert_allclose(np.sort_complex(z), np.sort_complex(E_ref), rtol=1e-6, atol=1e-9,
+                               err_msg="discrete closed-loop eigenvalues")
+    assert result["sample_period_s"] == pytest.approx(0.005, rel=1e-12)
+    assert result["suggested_config"] == suggest_gains(np.array(result["lqr_gain_discrete"]),
+                                                       result["fall_time_constant_s"])
+    assert result["suggested_config_source"] == "lqr_gain_discrete"
+
+
+@pytest.mark.parametrize("rate_hz", [50.0, 200.0, 1000.0])
+def test_zoh_matches_scipy(every_robot, rate_hz):
+    """Zero-order hold against scipy.signal.cont2discrete(method='zoh') (reference
+    library), rel 1e-10, for the duty model of every robot."""
+    A, B = duty_input_model(PlanarParams.from_spec(every_robot))
+    Ad, Bd = zoh_discretise(A, B, 1.0 / rate_hz)
+    Ad_ref, Bd_ref, *_ = scipy.signal.cont2discrete((A, B, np.eye(4), np.zeros((4, 1))),
+                                                    1.0 / rate_hz, method="zoh")
+    np.testing.assert_allclose(Ad, Ad_ref, rtol=1e-10, atol=1e-14, err_msg="Ad")
+    np.testing.assert_allclose(Bd, Bd_ref, rtol=1e-10, atol=1e-14, err_msg="Bd")
+
+
+def test_zoh_double_integrator_closed_form():
+    """Double integrator held over T: Ad = [[1, T], [0, 1]], Bd = [T²/2, T] (exact
+    integration of a constant input, any digital-control text, e.g. Franklin, Powell &
+    Workman, Digital Control of Dynamic Systems [memory])."""
+    period = 0.005
+    Ad, Bd = zoh_discretise(np.array([[0.0, 1], [0, 0]]), np.array([[0.0], [1]]), period)
+    np.testing.assert_allclose(Ad, [[1, period], [0, 1]], rtol=1e-14, atol=1e-16, err_msg="Ad")
+    np.testing.assert_allclose(Bd.ravel(), [period**2 / 2, period], rtol=1e-12, err_msg="Bd")
+    with pytest.raises(AnalysisError, match="sample period"):
+        zoh_discretise(np.eye(2), np.ones((2, 1)), 0.0)
+
+
+def test_dlqr_scalar_golden_ratio():
+    """Scalar DARE with a = b = q = r = 1: p = p − p²/(1 + p) + 1 → p² − p − 1 = 0,
+    p = (1 + √5)/2, k = p/(1 + p) = 0.618034 [derived]."""
+    K, P, closed = dlqr([[1.0]], [[1.0]], [[1.0]], [[1.0]])
+    golden = (1 + math.sqrt(5)) / 2
+    assert P[0, 0] == pytest.approx(golden, rel=1e-12), "P"
+    assert K[0, 0] == pytest.approx(golden / (1 + golden), rel=1e-12), "K"
+    assert abs(closed[0]) == pytest.approx(1 - golden / (1 + golden), rel=1e-12), "closed loop z"
+
+
+@pytest.mark.parametrize("model", ["worked-torque", "desk-mite", "shelf-runner", "tall-mast"])
+def test_dlqr_agrees_with_python_control(model):
+    """control.dlqr (python-control, reference library) -> (K, S, E); ours agrees to
+    rel 1e-6 on the ZOH models at 200 Hz, and P satisfies the DARE."""
+    if model == "worked-torque":
+        A, B = torque_input_model(WORKED)
+    else:
+        A, B = duty_input_model(PlanarParams.from_spec(load_robot(REPO / f"robots/{model}.yaml")))
+    Q, R = default_weights()
+    Ad, Bd = zoh_discretise(A, B, 1 / 200.0)
+    K, P, closed = dlqr(Ad, Bd, Q, R)
+    K_ref, S_ref, E_ref = control.dlqr(Ad, Bd, Q, R)
+    np.testing.assert_allclose(K, K_ref, rtol=1e-6, err_msg="K vs control.dlqr")
+    np.testing.assert_allclose(P, S_ref, rtol=1e-6, atol=1e-9, err_msg="P vs control.dlqr S")
+    np.testing.assert_allclose(np.sort_complex(closed), np.sort_complex(E_ref), rtol=1e-6,
+                               atol=1e-9, err_msg="closed-loop eigenvalues vs control.dlqr E")
+    gain_part = Ad.T @ P @ Bd @ np.linalg.solve(R + Bd.T @ P @ Bd, Bd.T @ P @ Ad)
+    residual = Ad.T @ P @ Ad - gain_part + Q - P
+    assert np.abs(residual).max() < 1e-8 * np.abs(P).max(), "DARE residual"
+
+
+def test_discrete_gain_tends_to_continuous(every_robot):
+    """As T → 0 the sampled LQR tends to the continuous one, error O(T) [derived: the
+    per-tick cost is the continuous cost over T to first order, and the weights' common
+    factor T does not change K]: within 0.5 % at 100 kHz, ~10× closer per decade."""
+    A, B = duty_input_model(PlanarParams.from_spec(every_robot))
+    Q, R = default_weights()
+    K_cont, _, _ = lqr(A, B, Q, R)
+    errors = []
+    for rate in (1e3, 1e4, 1e5):
+        K, _, _ = dlqr(*zoh_discretise(A, B, 1 / rate), Q, R)
+        errors.append(np.abs(K / K_cont - 1).max())
+    assert errors[-1] < 5e-3, f"relative gain difference at 100 kHz: {errors[-1]:.2e}"
+    assert 5 < errors[0] / errors[1] < 20 and 5 < errors[1] / errors[2] < 20, f"{errors}"
+
+
+def test_dlqr_rejects_bad_weights_and_no_input():
+    """DARE needs Q ⪰ 0, R ≻ 0 and a stabilisable pair (any LQR text)."""
+    Ad, Bd = zoh_discretise(*torque_input_model(WORKED), 0.005)
+    with pytest.raises(AnalysisError, match="R must be"):
+        dlqr(Ad, Bd, np.eye(4), [[0.0]])
+    with pytest.raises(AnalysisError, match="Q 4x4"):
+        dlqr(Ad, Bd, np.eye(3), [[1.0]])
+    with pytest.raises(AnalysisError):
+        dlqr(Ad, np.zeros((4, 1)), np.eye(4), [[1.0]])
+
+
+def test_delayed_spectral_radius_scalar():
+    """x⁺ = a x + b u with u_k = −k x_(k−1): z² − a z + b k = 0 [derived]; no delay: |a − b k|."""
+    a, b, k = 1.2, 0.5, 1.0
+    expected = max(abs(np.roots([1.0, -a, b * k])))
+    assert delayed_spectral_radius([[a]], [[b]], [[k]], ticks=1) == pytest.approx(expected,
+                                                                                   rel=1e-12)
+    assert delayed_spectral_radius([[a]], [[b]], [[k]], ticks=0) == pytest.approx(abs(a - b * k))
+    two = max(abs(np.roots([1.0, -a, 0.0, b * k])))  # z³ − a z² + b k = 0
+    assert delayed_spectral_radius([[a]], [[b]], [[k]], ticks=2) == pytest.approx(two, rel=1e-12)
+
+
+def test_continuous_gain_cannot_take_a_tick_of_delay_on_desk_mite():
+    """Why desk-mite fell with the continuous gains at 200 Hz: applied one tick late
+    (what a filtered estimate costs) they are unstable (|z| > 1); the discrete design's
+    gains are not [derived from the ZOH model]."""
+    result = analyze(load_robot(REPO / "robots/desk-mite.yaml"), rate_hz=200.0)
+    Ad, Bd = np.array(result["A_discrete"]), np.array(result["B_discrete"])
+    assert delayed_spectral_radius(Ad, Bd, np.array(result["lqr_gain"])) > 1.0
+    assert result["one_tick_delay_spectral_radius"] < 1.0
+    assert result["rate_warning"] is not None and "lqr_gain" in result["rate_warning"]
+
+
+def test_no_delay_warning_for_the_demo_robots(every_robot):
+    """The demo robots' suggested gains at 200 Hz survive one tick of delay [derived]."""
+    result = analyze(every_robot)
+    assert result["one_tick_delay_spectral_radius"] < 1.0
+    assert not any("late" in w for w in result["warnings"]), result["warnings"]
+
+
+def test_equivalent_poles_invert_sampling():
+    """s = ln(z)/T inverts z = e^(sT) (definition) for poles within the Nyquist band."""
+    poles = np.array([-3.0 + 2.0j, -3.0 - 2.0j, -250.0, 1.5])
+    period = 0.005
+    np.testing.assert_allclose(equivalent_poles(np.exp(poles * period), period), poles,
+                               rtol=1e-12, err_msg="equivalent poles (1/s)")
+    assert np.isfinite(equivalent_poles(np.array([0.0]), period)).all(), "dead-beat pole"
+
+
+# ------------------------------------------------------------------ emitted configs
+
+
+@pytest.mark.parametrize("controller", ["pid_tilt", "cascade"])
+def test_emitted_config_is_what_the_controller_reads(shelf_runner, controller):
+    """The emitted mapping is the suggested config; the example controller built with it
+    (sandbox.control, no engine) holds exactly those gains, and its YAML text reads back
+    equal (PyYAML safe_load)."""
+    result = analyze(shelf_runner)
+    path = REPO / "controllers" / f"{controller}.py"
+    config = emit_config(result, str(path))
+    assert config == result["suggested_config"][controller]
+    assert emit_config(result, f"{path}:Controller") == config, "path with a class name"
+    assert yaml.safe_load(config_yaml(result, str(path))) == config, "YAML round trip"
+    built = make_controller(load_controller_class(str(path)), config,
+                            RobotFacts.from_spec(shelf_runner, 200.0, 1e-3))
+    if controller == "pid_tilt":
+        held = {"kp": built.kp, "ki": built.ki, "kd": built.kd, "speed_kd": built.speed_kd,
+                "filter_time_constant": built.tilt.time_constant}
+    else:
+        held = {"tilt_kp": built.tilt_kp, "tilt_kd": built.tilt_kd, "speed_kp": built.speed_kp,
+                "position_kp": built.position_kp,
+                "filter_time_constant": built.tilt.time_constant}
+    assert held == pytest.approx(config, rel=1e-15), f"{controller} gains as held"
+
+
+def test_unknown_controller_gets_raw_gains(shelf_runner):
+    """Any other controller gets k_position, k_speed, k_pitch, k_pitch_rate = the discrete
+    K, so u = −(k·s) is the discrete LQR law (definition)."""
+    result = analyze(shelf_runner)
+    config = emit_config(result, "my_robot/balance_v2.py:Balancer")
+    assert list(config) == list(RAW_GAIN_KEYS)
+    np.testing.assert_allclose([config[k] for k in RAW_GAIN_KEYS],
+                               np.ravel(result["lqr_gain_discrete"]), rtol=1e-15)
+    text = config_yaml(result, "balance_v2.py")
+    assert "duty = -(k_position*x" in text and yaml.safe_load(text) == config
+    assert controller_stem("a/b/pid_tilt.py:Other") == "pid_tilt"
+    assert controller_stem("cascade") == "cascade"
+
+
+def test_analysis_table_shows_what_a_builder_needs():
+    """The text report names poles, fall time, both gains with units, closed-loop poles,
+    both suggested configs and the warnings (values as in the JSON result)."""
+    result = analyze(load_robot(REPO / "robots/desk-mite.yaml"))
+    text = analysis_table(result)
+    for needle in ("desk-mite", "open-loop poles", "fall time constant", "duty/rad",
+                   "duty/(rad/s)", "continuous", "discrete 200 Hz", "closed-loop poles",
+                   "pid_tilt: kp", "speed_kd", "cascade: tilt_kp", "warnings:",
+                   f"{result['lqr_gain_discrete'][0][2]:.4g}", "9.624"):
+        assert needle in text, f"missing {needle!r} in:\n{text}"
+    assert result["rate_warning"] in text
+    calm = analysis_table(analyze(load_robot(REPO / "robots/tall-mast.yaml")))
+    assert "warnings: none" in calm
