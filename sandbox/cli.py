@@ -451,3 +451,75 @@ def demo(
     typer.echo("next: open video.mp4 and plots.png there; then try "
                "`upright suite robots/shelf-runner.yaml controllers/cascade.py`")
     raise typer.Exit(_exit_code(result))
+
+
+def _floats(text: str | None, count: int, option: str) -> list[float] | None:
+    if text is None:
+        return None
+    try:
+        values = [float(v) for v in text.replace(" ", "").split(",") if v]
+    except ValueError:
+        raise BadInput(f"{option} {text!r}: expected {count} numbers separated by commas") from None
+    if len(values) != count:
+        raise BadInput(f"{option} {text!r}: expected {count} numbers, got {len(values)}")
+    return values
+
+
+@app.command()
+@handles_errors
+def analyze(
+    robot: RobotArg,
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
+    q: Annotated[str | None, typer.Option(
+        "--q", help="LQR state weights for x, v, pitch, pitch rate, e.g. 4,4,131,1.3 "
+        "(default: Bryson's rule, see DEVELOPERS.md).")] = None,
+    r: Annotated[float | None, typer.Option("--r", help="LQR duty weight (default 1).")] = None,
+    rate: Annotated[float, typer.Option("--rate", help="Controller rate, Hz.")] = 200.0,
+    emit_config: Annotated[Path | None, typer.Option(
+        "--emit-config", help="Write suggested gains as a config file for --config.")] = None,
+    controller: Annotated[str, typer.Option(
+        "--for", help="Which controller the emitted config is for: pid_tilt, cascade, or a "
+        "script path (others get raw state-feedback gains).")] = "cascade",
+    check: Annotated[bool, typer.Option(
+        "--check", help="Also identify A and B from small-perturbation runs of the physics "
+        "model and print them beside the analytic model.")] = False,
+    try_gains: Annotated[bool, typer.Option(
+        "--try", help="Also run the example controllers with the suggested gains "
+        "(20 s from 5 deg) and report whether they stay up.")] = False,
+    set_: Annotated[list[str] | None, typer.Option(
+        "--set", help="Override a robot key, e.g. wheels.radius=40mm.")] = None,
+) -> None:
+    """Linear model of the robot: poles, fall time, LQR gains, suggested starting gains."""
+    from .analysis import analysis_table, config_yaml
+    from .analysis import analyze as analyse_robot
+    from .robot import load_robot
+
+    spec = load_robot(robot, parse_sets(set_))
+    result = analyse_robot(spec, q_diag=_floats(q, 4, "--q"), r=r, rate_hz=rate)
+    if emit_config is not None:
+        emit_config.write_text(config_yaml(result, controller), encoding="utf-8")
+    code = EXIT_OK
+    if as_json:
+        if check:
+            from .identify import compare
+
+            result["check"] = compare(spec)
+        typer.echo(json.dumps(result, indent=2))
+    else:
+        typer.echo(analysis_table(result))
+        if check:
+            from .identify import compare, compare_table
+
+            typer.echo("")
+            typer.echo(compare_table(compare(spec)))
+    if try_gains:
+        from .identify import check_suggested, check_table
+
+        rows = check_suggested(spec, result)
+        if not as_json:
+            typer.echo("")
+            typer.echo(check_table(rows))
+        code = EXIT_OK if all(row["status"] == "completed" for row in rows) else EXIT_FELL
+    if emit_config is not None and not as_json:
+        typer.echo(f"wrote {emit_config} (use it with --config)")
+    raise typer.Exit(code)
