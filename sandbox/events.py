@@ -247,14 +247,14 @@ class Timeline:
 
     def fire(self, t: float, x: float, world, drive, imu, encoders) -> None:
         """Apply every event now due (by time ``t`` s or distance ``x`` m)."""
-        if self._dropout_until is not None and t >= self._dropout_until:
+        if self._dropout_until is not None and t >= self._dropout_until - 1e-9:
             imu.accel_dropout = False
             self._dropout_until = None
         for index, event in enumerate(self.events):
             if index in self._done:
                 continue
             due = (event.at is not None and t >= event.at - 1e-9) or (
-                event.at_position is not None and x >= event.at_position)
+                event.at_position is not None and _reached(x, event.at_position))
             if due:
                 self._done.add(index)
                 self._apply(event, t, world, drive, imu, encoders)
@@ -310,6 +310,12 @@ class Timeline:
             label = f"push {push.force:.3g} N for {push.duration:g} s"
         world.push(tuple(magnitude * v for v in direction), (0.0, 0.0, height), steps)
         return label
+
+
+def _reached(x: float, position: float) -> bool:
+    """Whether travel ``x`` (m) has got to ``position``: ahead for a positive position,
+    behind for a negative one (backing up), at once for zero."""
+    return x <= position if position < 0 else x >= position
 
 
 def _frame_top(spec: RobotSpec) -> float:
@@ -419,7 +425,8 @@ def _speed_error(t: np.ndarray, speed: np.ndarray, timeline: Timeline,
     mask = np.ones_like(t, dtype=bool)
     for when, _, _ in timeline.setpoint_changes:
         mask &= ~((t >= when) & (t < when + settle))
-    if not timeline.setpoint_changes or not mask.any():
+    # with no setpoint event at all the target is 0 m/s throughout: holding still
+    if not mask.any():
         return None
     return float(np.sqrt(np.mean((speed[mask] - target[mask]) ** 2)))
 

@@ -30,7 +30,9 @@ def plot_run(trace: dict[str, np.ndarray], path: Path, title: str = "",
     ax = axes[0]
     ax.plot(t, np.degrees(trace["pitch_rad"]), label="true tilt", color="black", lw=1.2)
     for name in _estimate_channels(trace):
-        ax.plot(t, np.degrees(trace[name]), label=name[4:], lw=1.0, alpha=0.8)
+        # plotted in degrees: the legend drops the channel's "_rad"
+        ax.plot(t, np.degrees(trace[name]), label=name[4:].removesuffix("_rad"), lw=1.0,
+                alpha=0.8)
     ax.set_ylabel("tilt (deg)")
     ax.legend(loc="upper right", fontsize=8)
     axes[1].plot(t, np.degrees(trace["pitch_rate_rad_s"]), color="tab:purple", lw=1.0)

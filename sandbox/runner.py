@@ -162,6 +162,7 @@ class Simulation:
         wall_start = time.perf_counter()
         gravity = world.gravity_vector()
         coupled = world.reflected_inertia > 0.0  # the world then reads the body every step
+        fast_sampling = coupled and not sensor_latency_steps
         try:
             controller = make_controller(self.controller_class, s.config, self.robot_facts)
             if hasattr(controller, "reset"):
@@ -232,6 +233,20 @@ class Simulation:
                 # -- physics until the next tick, stopping where something is due
                 target = step + spt
                 next_sample = sample_step(target, dt, imu_rate, sensor_latency_steps)
+                if fast_sampling and next_sample == target:
+                    # The usual case: the sample is taken at the tick itself and the coupled
+                    # world remembers the body's velocity before its last step.
+                    while step < target:
+                        while pending and pending[0][0] <= step:
+                            _, left, right = pending.popleft()
+                            drive.set_duty(left, right)
+                        stop = pending[0][0] if pending and pending[0][0] < target else target
+                        world.advance(stop - step, drive)
+                        step = stop
+                    state = world.body_state()
+                    truths[target] = self._imu_truth(
+                        state, mount, gravity, world.previous_point_velocity(state, mount), dt)
+                    continue
                 # With sensor latency the newest sample of this period may be seen only
                 # a tick later (when none falls between the tick and tick + latency).
                 newest = (sample_step(target, dt, imu_rate, 0.0) if sensor_latency_steps

@@ -130,6 +130,7 @@ STEP_COLOUR = (0.45, 0.40, 0.36, 1.0)
 FLOOR_HALF_WIDTH = 5.0  # m across the robot's path
 FLOOR_EXTENT = (-20.0, 40.0)  # m along the path
 ROUGH_EXTENT = (-1.0, 8.0)
+ROUGH_HALF_WIDTH = 0.6
 
 
 def floor_pieces(ground: Ground) -> list[tuple[float, float, float]]:
@@ -152,7 +153,7 @@ def floor_pieces(ground: Ground) -> list[tuple[float, float, float]]:
 
 
 def rough_heights(rough: Rough, spacing: float, extent=ROUGH_EXTENT,
-                  half_width: float = 0.6) -> np.ndarray:
+                  half_width: float = ROUGH_HALF_WIDTH) -> np.ndarray:
     """Heights (m) on a grid, rows along x: smoothed seeded noise scaled to ±amplitude.
 
     The first half metre ramps up from flat so the robot starts on level floor.
@@ -334,6 +335,16 @@ class World:
         self.floor_ids: list[int] = []
         if g.rough is not None:
             self.floor_ids.append(self._make_heightfield(g.rough))
+            # flat floor all round the rough stretch, so a long test cannot drive off it
+            (x0, x1), (f0, f1), w = ROUGH_EXTENT, FLOOR_EXTENT, ROUGH_HALF_WIDTH
+            for centre, half in (
+                    (((f0 + x0) / 2, 0.0, -0.05), ((x0 - f0) / 2, FLOOR_HALF_WIDTH, 0.05)),
+                    (((x1 + f1) / 2, 0.0, -0.05), ((f1 - x1) / 2, FLOOR_HALF_WIDTH, 0.05)),
+                    (((x0 + x1) / 2, (w + FLOOR_HALF_WIDTH) / 2, -0.05),
+                     ((x1 - x0) / 2, (FLOOR_HALF_WIDTH - w) / 2, 0.05)),
+                    (((x0 + x1) / 2, -(w + FLOOR_HALF_WIDTH) / 2, -0.05),
+                     ((x1 - x0) / 2, (FLOOR_HALF_WIDTH - w) / 2, 0.05))):
+                self.floor_ids.append(self._floor_box(centre, half, FLOOR_COLOUR, g.friction))
         else:
             for start, end, friction in floor_pieces(g):
                 colour = FLOOR_COLOUR if friction == g.friction else PATCH_COLOUR
