@@ -16,85 +16,50 @@ Config keys (all optional):
   filter_time_constant    s, complementary filter
   turn_kp                 duty per rad/s of yaw-rate error
 
-Without gains in the config they are worked out from the robot's facts (see
-pid_tilt.starting_gains); `upright analyze ROBOT --emit-config FILE` writes
-LQR-based gains with the same keys.
+Without gains in the config the tilt loop's come from the robot's facts
+(`pendulum_gains`, as in pid_tilt.py) and the outer loop's are the ratios an
+LQR design gives for the demo robots; `upright analyze ROBOT --emit-config
+FILE --for cascade` writes LQR-based gains with the same keys.
 """
 
 import math
 
-from sandbox.control import ComplementaryTilt
-
-GRAVITY = 9.80665
-
-
-def starting_gains(robot, speed_up=2.5, damping=0.7):
-    """(tilt_kp, tilt_kd) so the tilt loop alone is 2.5 times as fast as the fall, damping 0.7."""
-    lean = robot.body_mass * GRAVITY * robot.com_height
-    omega = speed_up * math.sqrt(lean / robot.pitch_inertia)
-    torque = 2.0 * robot.stall_torque
-    kp = (lean + robot.pitch_inertia * omega**2) / torque
-    kd = 2.0 * damping * omega * robot.pitch_inertia / torque
-    return kp, kd
+from sandbox.control import ComplementaryTilt, WheelOdometry, accel_tilt, pendulum_gains
 
 
 class Controller:
     rate_hz = 200
 
     def __init__(self, config, robot):
-        kp, kd = starting_gains(robot)
+        kp, kd = pendulum_gains(robot)
         self.tilt_kp = float(config.get("tilt_kp", kp))
         self.tilt_kd = float(config.get("tilt_kd", kd))
-        # Outer loop, in rad of target tilt per m/s and per m: the ratios an LQR
-        # design gives (speed ~0.3, position ~0.12) for all our demo robots.
+        # rad of target tilt per m/s and per m (LQR ratios: speed ~0.3, position ~0.12)
         self.speed_kp = float(config.get("speed_kp", 0.3))
         self.position_kp = float(config.get("position_kp", 0.12))
         self.max_target = float(config.get("max_target_tilt", math.radians(5.0)))
-        self.speed_filter = float(config.get("speed_filter", 0.05))
         self.turn_kp = float(config.get("turn_kp", 0.05))
         self.tilt = ComplementaryTilt(float(config.get("filter_time_constant", 1.0)))
-        self.radius = robot.wheel_radius
-        self.counts_per_rev = robot.counts_per_rev
+        self.odometry = WheelOdometry(robot, float(config.get("speed_filter", 0.05)))
         self.reset()
 
     def reset(self):
         self.tilt.reset()
-        self.last_x = None
-        self.speed = 0.0
-        self.acceleration = 0.0
+        self.odometry.reset()
         self.x_target = 0.0
 
     def step(self, r):
-        # The accelerometer feels the robot's own acceleration as well as gravity:
-        # take the acceleration the encoders see out of it before reading a tilt.
-        # When the body swings hard (a shove, a bump) the accelerometer reads far from
-        # 1 g and its tilt is meaningless: trust the gyro alone until it settles.
-        accel_x = r.accel[0] - self.acceleration
-        magnitude = math.sqrt(accel_x**2 + r.accel[1] ** 2 + r.accel[2] ** 2)
-        if abs(magnitude - GRAVITY) < 0.1 * GRAVITY and self.tilt.started:
-            accel_tilt = math.atan2(-accel_x, r.accel[2])
-        elif self.tilt.started:
-            accel_tilt = self.tilt.angle + r.gyro[1] * r.dt  # no correction this tick
-        else:
-            accel_tilt = math.atan2(-accel_x, r.accel[2])
-        tilt = self.tilt.update(r.gyro[1], accel_tilt, r.dt)
-        # Wheel turn relative to the body plus the body's tilt = the wheel's turn on the floor.
-        wheel = 2.0 * math.pi * 0.5 * (r.ticks[0] + r.ticks[1]) / self.counts_per_rev
-        x = self.radius * (wheel + tilt)
-        if self.last_x is not None:
-            raw = (x - self.last_x) / r.dt
-            blend = r.dt / (self.speed_filter + r.dt)
-            previous = self.speed
-            self.speed += blend * (raw - self.speed)
-            self.acceleration += blend * ((self.speed - previous) / r.dt - self.acceleration)
-        self.last_x = x
+        # the accelerometer's tilt, with the robot's own acceleration taken out
+        tilt = self.tilt.update(r.gyro[1], accel_tilt(r, self.odometry.acceleration), r.dt)
+        x = self.odometry.update(r.ticks, tilt, r.dt)
+        speed = self.odometry.speed
         self.x_target += r.setpoint.speed * r.dt
-        target = -(self.speed_kp * (self.speed - r.setpoint.speed)
+        target = -(self.speed_kp * (speed - r.setpoint.speed)
                    + self.position_kp * (x - self.x_target))
         target = max(-self.max_target, min(self.max_target, target))
         drive = self.tilt_kp * (tilt - target) + self.tilt_kd * r.gyro[1]
         steer = self.turn_kp * (r.setpoint.turn - r.gyro[2])
         r.log("tilt_est_rad", tilt)
         r.log("target_tilt_rad", target)
-        r.log("speed_est_m_s", self.speed)
+        r.log("speed_est_m_s", speed)
         return drive - steer, drive + steer

@@ -27,6 +27,9 @@ import numpy as np
 __all__ = [
     "ComplementaryTilt",
     "ControllerError",
+    "WheelOdometry",
+    "accel_tilt",
+    "pendulum_gains",
     "ControllerLoadError",
     "KalmanTilt",
     "Pid",
@@ -557,10 +560,19 @@ class ComplementaryTilt:
         """Weight of the gyro path for a step ``dt`` (s): τ/(τ + dt)."""
         return self.time_constant / (self.time_constant + dt)
 
-    def update(self, gyro_rate: float, accel_tilt: float, dt: float) -> float:
-        """New tilt estimate (rad) from pitch rate (rad/s) and accelerometer tilt (rad)."""
+    def update(self, gyro_rate: float, accel_tilt: float | None, dt: float) -> float:
+        """New tilt estimate (rad) from pitch rate (rad/s) and accelerometer tilt (rad).
+
+        ``accel_tilt`` None means no usable accelerometer reading this tick (see
+        :func:`accel_tilt`): the gyro alone carries the estimate (from 0 if it is
+        the very first update).
+        """
         if not dt > 0.0:
             raise ValueError(f"ComplementaryTilt.update: dt must be > 0 s, got {dt!r}")
+        if accel_tilt is None:
+            self.started = True
+            self.angle += gyro_rate * dt
+            return self.angle
         if not self.started:
             self.started = True
             self.angle = float(accel_tilt)
@@ -572,6 +584,81 @@ class ComplementaryTilt:
     def update_from_reading(self, r: Reading) -> float:
         """Update from a :class:`Reading`: gyro y, and tilt atan2(−accel_x, accel_z)."""
         return self.update(r.gyro[1], math.atan2(-r.accel[0], r.accel[2]), r.dt)
+
+
+GRAVITY = 9.80665  # m/s², standard gravity
+
+
+def accel_tilt(r: Reading, forward_acceleration: float = 0.0,
+               tolerance: float = 0.1) -> float | None:
+    """Tilt (rad) from the accelerometer, atan2(−a_x, a_z), or None when it cannot be trusted.
+
+    ``forward_acceleration`` (m/s², e.g. from :class:`WheelOdometry`) is the
+    robot's own acceleration, which the accelerometer feels as much as gravity:
+    it is taken out of a_x first. While the specific force is more than
+    ``tolerance`` g away from 1 g (a shove, a bump) the result is None, so a
+    filter can trust its gyro alone until the body settles.
+    """
+    ax = r.accel[0] - forward_acceleration
+    ay, az = r.accel[1], r.accel[2]
+    if abs(math.sqrt(ax * ax + ay * ay + az * az) - GRAVITY) > tolerance * GRAVITY:
+        return None
+    return math.atan2(-ax, az)
+
+
+class WheelOdometry:
+    """Distance (m), speed (m/s) and acceleration (m/s²) along the floor from the encoders.
+
+    The encoders count the wheels' turn relative to the body; adding the body's
+    tilt gives the wheels' turn on the floor, times the radius the distance.
+    Speed and acceleration are differences through a first-order low-pass of
+    time constant ``speed_filter`` (s).
+    """
+
+    __slots__ = ("radius", "counts_per_rev", "speed_filter", "distance", "speed",
+                 "acceleration", "_started")
+
+    def __init__(self, robot: RobotFacts, speed_filter: float = 0.05):
+        self.radius = robot.wheel_radius
+        self.counts_per_rev = robot.counts_per_rev
+        self.speed_filter = float(speed_filter)
+        self.reset()
+
+    def reset(self) -> None:
+        self.distance = 0.0
+        self.speed = 0.0
+        self.acceleration = 0.0
+        self._started = False
+
+    def update(self, ticks: tuple[int, int], tilt: float, dt: float) -> float:
+        """New distance (m) from both encoder counts, the tilt (rad) and the tick (s)."""
+        wheel = math.pi * (ticks[0] + ticks[1]) / self.counts_per_rev  # mean turn, rad
+        distance = self.radius * (wheel + tilt)
+        if self._started:
+            blend = dt / (self.speed_filter + dt)
+            previous = self.speed
+            self.speed += blend * ((distance - self.distance) / dt - self.speed)
+            self.acceleration += blend * ((self.speed - previous) / dt - self.acceleration)
+        self._started = True
+        self.distance = distance
+        return distance
+
+
+def pendulum_gains(robot: RobotFacts, speed_up: float = 2.5,
+                   damping: float = 0.7) -> tuple[float, float]:
+    """Starting (kp duty/rad, kd duty/(rad/s)) for a PD tilt loop, from the robot's facts.
+
+    Tilt loop alone (wheels held): I·θ̈ = m g l θ − T (kp θ + kd θ̇), T the stall
+    torque of both wheels, I the body's pitch inertia about the axle; gains that
+    give natural frequency ``speed_up`` × √(m g l / I) with damping ratio
+    ``damping`` (second-order pole placement).
+    """
+    lean = robot.body_mass * GRAVITY * robot.com_height  # N·m per rad
+    omega = speed_up * math.sqrt(lean / robot.pitch_inertia)
+    torque = 2.0 * robot.stall_torque
+    kp = (lean + robot.pitch_inertia * omega**2) / torque
+    kd = 2.0 * damping * omega * robot.pitch_inertia / torque
+    return kp, kd
 
 
 class KalmanTilt:
