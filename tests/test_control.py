@@ -663,3 +663,81 @@ def test_kalman_from_reading_and_validation():
     for args in ((0.0, 0.1, 0.1), (0.1, -1.0, 0.1), (0.1, 0.1, math.nan)):
         with pytest.raises(ValueError):
             KalmanTilt(*args)
+
+
+# --------------------------------------------------------------------- tilt, odometry, gains
+
+def _facts(**changes):
+    base = dict(wheel_radius=0.04, track=0.15, counts_per_rev=1000.0, mass=1.1, com_height=0.1,
+                battery_voltage=7.2, drive_voltage=6.0, max_wheel_speed=30.0,
+                imu_at=(0.0, 0.0, 0.1), physics_dt=0.001, rate_hz=200.0, pitch_inertia=0.02,
+                body_mass=1.0, stall_torque=0.3)
+    base.update(changes)
+    return RobotFacts(**base)
+
+
+def test_accel_tilt_static_and_with_own_acceleration():
+    """Static tilt 10°: f = (−g sin θ, 0, g cos θ) gives back 10° (SOURCES.md §4 [derived]).
+
+    Accelerating forward at a while upright, the specific force is (a, 0, g): taking a
+    out gives 0° (Newton's second law in the body frame, small tilt).
+    """
+    from sandbox.control import accel_tilt
+
+    g = 9.80665
+    r = Reading(accel=(-1.702907, 0.0, 9.657665))
+    assert accel_tilt(r) == pytest.approx(math.radians(10.0), abs=1e-6)
+    r = Reading(accel=(0.8, 0.0, g))
+    assert accel_tilt(r, forward_acceleration=0.8) == pytest.approx(0.0, abs=1e-12)
+    assert accel_tilt(r) == pytest.approx(math.atan2(-0.8, g), abs=1e-12), "uncorrected"
+
+
+def test_accel_tilt_refuses_readings_far_from_one_g():
+    """|f| more than 0.1 g from 1 g (a shove, free fall, a dropped-out sensor) gives None,
+    and the complementary filter then integrates the gyro alone (exact)."""
+    from sandbox.control import accel_tilt
+
+    assert accel_tilt(Reading(accel=(0.0, 0.0, 0.0))) is None
+    assert accel_tilt(Reading(accel=(5.0, 0.0, 9.8))) is None
+    tilt = ComplementaryTilt(0.5)
+    tilt.update(0.0, 0.1, 0.01)
+    assert tilt.update(0.2, None, 0.01) == pytest.approx(0.1 + 0.2 * 0.01, abs=1e-15)
+
+
+def test_wheel_odometry_distance_speed_and_acceleration():
+    """Distance = r (wheel turn relative to the body + tilt) (rolling without slip, any
+    dynamics text); at constant speed the filtered speed converges to it and the
+    acceleration to zero (first-order low-pass, unit DC gain [derived])."""
+    from sandbox.control import WheelOdometry
+
+    facts = _facts()
+    odometry = WheelOdometry(facts, speed_filter=0.02)
+    counts = facts.counts_per_rev
+    assert odometry.update((int(counts), int(counts)), 0.0, 0.005) == pytest.approx(
+        2 * math.pi * 0.04)
+    assert odometry.update((0, 0), 0.25, 0.005) == pytest.approx(0.04 * 0.25)
+    odometry.reset()
+    speed = 0.3  # m/s
+    for k in range(400):
+        turn = speed * k * 0.005 / 0.04  # rad
+        ticks = int(round(turn / (2 * math.pi) * counts))
+        odometry.update((ticks, ticks), 0.0, 0.005)
+    assert odometry.speed == pytest.approx(speed, rel=0.02), "speed (m/s)"
+    assert abs(odometry.acceleration) < 0.2, "acceleration at constant speed (m/s^2)"
+
+
+def test_pendulum_gains_place_the_tilt_loop_poles():
+    """I θ̈ = m g l θ − T (kp θ + kd θ̇) has characteristic s² + (T kd / I) s + (T kp − m g l)/I;
+    the gains must give ω_n = speed_up √(m g l / I) and ζ = damping (second-order
+    pole placement, Franklin, Powell & Emami-Naeini ch. 3 [memory for the chapter])."""
+    from sandbox.control import pendulum_gains
+
+    facts = _facts()
+    kp, kd = pendulum_gains(facts, speed_up=2.0, damping=0.7)
+    g = 9.80665
+    lean = facts.body_mass * g * facts.com_height
+    torque = 2 * facts.stall_torque
+    omega_sq = (torque * kp - lean) / facts.pitch_inertia
+    omega = math.sqrt(omega_sq)
+    assert omega == pytest.approx(2.0 * math.sqrt(lean / facts.pitch_inertia), rel=1e-12)
+    assert torque * kd / facts.pitch_inertia / (2 * omega) == pytest.approx(0.7, rel=1e-12)
