@@ -76,6 +76,18 @@ def main(
 
 
 RobotArg = Annotated[Path, typer.Argument(help="Robot description file (YAML).")]
+ControllerArg = Annotated[str, typer.Argument(
+    help="Controller script: file.py or file.py:ClassName.")]
+JsonOption = Annotated[bool, typer.Option("--json", help="Print JSON for programs.")]
+RobotSetOption = Annotated[list[str] | None, typer.Option(
+    "--set", help="Override a robot key, e.g. wheels.radius=40mm.")]
+SetOption = Annotated[list[str] | None, typer.Option(
+    "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")]
+ConfigOption = Annotated[Path | None, typer.Option(
+    "--config", help="Controller config file (YAML mapping of names to values).")]
+SeedOption = Annotated[int, typer.Option("--seed", help="Seed for every random source.")]
+WorkersOption = Annotated[int | None, typer.Option(
+    "--workers", help="Parallel processes (default: all cores).")]
 
 
 def parse_sets(items: list[str] | None) -> dict[str, Any]:
@@ -111,10 +123,8 @@ def _split_sets(items: list[str] | None) -> tuple[dict[str, Any], dict[str, Any]
 @handles_errors
 def inspect(
     robot: RobotArg,
-    as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
-    set_: Annotated[
-        list[str] | None, typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
-    ] = None,
+    as_json: JsonOption = False,
+    set_: RobotSetOption = None,
 ) -> None:
     """Derived figures of a robot: mass, centre of mass, inertia, motor constants, limits."""
     from .robot import figures_json, load_robot
@@ -185,9 +195,7 @@ def build(
     output: Annotated[
         Path | None, typer.Option("-o", "--output", help="Write the URDF here (default: print).")
     ] = None,
-    set_: Annotated[
-        list[str] | None, typer.Option("--set", help="Override a key, e.g. wheels.radius=40mm.")
-    ] = None,
+    set_: RobotSetOption = None,
 ) -> None:
     """Write the robot's URDF (an open format other tools read)."""
     from .robot import load_robot
@@ -271,19 +279,16 @@ def _exit_code(result) -> int:
 @handles_errors
 def run(
     robot: RobotArg,
-    controller: Annotated[str, typer.Argument(help="Controller script: file.py or file.py:Class.")],
+    controller: ControllerArg,
     test: Annotated[str | None, typer.Option(
         "--test", help="A built-in test name or a test file (YAML).")] = None,
     duration: Annotated[float | None, typer.Option(
         "--duration", help="Simulated seconds (default 10, or the test's own).")] = None,
     tilt: Annotated[float, typer.Option(
         "--tilt", help="Starting tilt, degrees (+ forward).")] = 0.0,
-    seed: Annotated[int, typer.Option("--seed", help="Seed for every random source.")] = 0,
-    set_: Annotated[list[str] | None, typer.Option(
-        "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")
-    ] = None,
-    config_file: Annotated[Path | None, typer.Option(
-        "--config", help="Controller config file (YAML mapping of names to values).")] = None,
+    seed: SeedOption = 0,
+    set_: SetOption = None,
+    config_file: ConfigOption = None,
     rate: Annotated[float | None, typer.Option(
         "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")] = None,
     latency: Annotated[float, typer.Option(
@@ -335,16 +340,12 @@ def _settings_from(controller: str, config: dict, duration: float | None, tilt: 
 @handles_errors
 def suite(
     robot: RobotArg,
-    controller: Annotated[str, typer.Argument(help="Controller script: file.py or file.py:Class.")],
-    seed: Annotated[int, typer.Option("--seed", help="Seed for every random source.")] = 0,
-    set_: Annotated[list[str] | None, typer.Option(
-        "--set", help="Override a robot key or config value: wheels.friction=0.4, config.kp=30.")
-    ] = None,
-    config_file: Annotated[Path | None, typer.Option(
-        "--config", help="Controller config file (YAML mapping of names to values).")] = None,
+    controller: ControllerArg,
+    seed: SeedOption = 0,
+    set_: SetOption = None,
+    config_file: ConfigOption = None,
     rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
-    workers: Annotated[int | None, typer.Option(
-        "--workers", help="Parallel processes (default: all cores).")] = None,
+    workers: WorkersOption = None,
     out: Annotated[Path | None, typer.Option(
         "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Render a video of every test.")] = False,
@@ -469,7 +470,7 @@ def _floats(text: str | None, count: int, option: str) -> list[float] | None:
 @handles_errors
 def analyze(
     robot: RobotArg,
-    as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
+    as_json: JsonOption = False,
     q: Annotated[str | None, typer.Option(
         "--q", help="LQR state weights for x, v, pitch, pitch rate, e.g. 4,4,131,1.3 "
         "(default: Bryson's rule, see DEVELOPERS.md).")] = None,
@@ -486,8 +487,7 @@ def analyze(
     try_gains: Annotated[bool, typer.Option(
         "--try", help="Also run the example controllers with the suggested gains "
         "(20 s from 5 deg) and report whether they stay up.")] = False,
-    set_: Annotated[list[str] | None, typer.Option(
-        "--set", help="Override a robot key, e.g. wheels.radius=40mm.")] = None,
+    set_: RobotSetOption = None,
 ) -> None:
     """Linear model of the robot: poles, fall time, LQR gains, suggested starting gains."""
     from .analysis import analysis_table, config_yaml
