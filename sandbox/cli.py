@@ -260,7 +260,10 @@ def _print_run(result, folder: Path | None) -> None:
     if result.message and result.status != "completed":
         typer.echo(result.message)
     if folder is not None:
-        typer.echo(f"results in {folder}/ (trace.csv, summary.json, run.yaml, plots.png)")
+        files = [name for name in ("trace.csv", "summary.json", "run.yaml", "plots.png",
+                                   "video.mp4", "controller_error.txt")
+                 if (folder / name).is_file()]
+        typer.echo(f"results in {folder}/ ({', '.join(files)})")
 
 
 def _exit_code(result) -> int:

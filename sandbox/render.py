@@ -444,6 +444,7 @@ class FrameRenderer:
         top = max(max(b.at[2] + b.size[2] / 2 for b in spec.figures.boxes), spec.wheels.radius)
         distance = CAMERA_DISTANCE_PER_HEIGHT * top
         self.camera = Camera.beside(distance)
+        self.aim = np.array([0.0, 0.0, 0.25 * top])
         self.projection = pb.computeProjectionMatrixFOV(
             FIELD_OF_VIEW_DEG, width / height, distance / 40.0, distance * 40.0,
             physicsClientId=self.client)
@@ -498,9 +499,10 @@ class FrameRenderer:
         left, right = world.wheel_joints
         pb.resetJointState(robot, left, table.wheels[i, 0], physicsClientId=c)
         pb.resetJointState(robot, right, table.wheels[i, 1], physicsClientId=c)
-        axle = np.asarray(world.body_state().axle)
-        eye = axle + self.camera.offset
-        return eye, pb.computeViewMatrix(eye, axle, (0, 0, 1), physicsClientId=c)
+        # aim a little above the axle so a tall body stays clear of the overlay strip
+        target = np.asarray(world.body_state().axle) + self.aim
+        eye = target + self.camera.offset
+        return eye, pb.computeViewMatrix(eye, target, (0, 0, 1), physicsClientId=c)
 
     def render(self, i: int, out: np.ndarray | None = None) -> np.ndarray:
         """Frame ``i`` with its floor and overlay: (height, width, 4) uint8 RGBA.
