@@ -1,0 +1,236 @@
+"""What a sweep runs: grid axes (``--vary``), tolerances (``--spread``) and the points.
+
+A key is anything ``--set`` accepts: a dotted robot key (``wheels.friction``,
+``body.parts.0.mass``) or a controller key (``config.kp``). Values are plain
+numbers in SI units (the robot file's bare-number convention).
+
+Points are numbered cell by cell (the grid in row-major order, the last
+``--vary`` changing fastest) and, inside a cell, sample by sample. Every random
+draw comes from its own generator seeded by (base seed, sample number, key), so
+a point's values never depend on the order points run in, on the executor, or
+on which other tolerances are listed.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import re
+import zlib
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+CONFIG_PREFIX = "config."
+MAX_AXIS_POINTS = 10_000
+
+
+class SweepError(ValueError):
+    """Sweep input that cannot be used: an unreadable --vary or --spread, a bad key, a
+    folder that holds a different sweep."""
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One grid axis: a key and the values it takes (SI numbers)."""
+
+    key: str
+    values: tuple[float, ...]
+
+
+@dataclass(frozen=True)
+class Spread:
+    """A tolerance: ``key`` is drawn uniformly within ±amount of its nominal value.
+
+    ``relative``: amount is a fraction of the nominal value (``±5%`` -> 0.05);
+    otherwise it is in the key's SI unit.
+    """
+
+    key: str
+    amount: float
+    relative: bool
+
+    def apply(self, nominal: float, unit_draw: float) -> float:
+        """The value for a draw ``unit_draw`` in [-1, 1]."""
+        if self.relative:
+            return nominal * (1.0 + self.amount * unit_draw)
+        return nominal + self.amount * unit_draw
+
+    def describe(self) -> str:
+        return (f"±{100 * self.amount:g}%" if self.relative else f"±{self.amount:g}")
+
+
+@dataclass(frozen=True)
+class Point:
+    """One run of a sweep: its number, grid cell, sample, parameter values and run seed."""
+
+    index: int
+    cell: int
+    sample: int
+    values: Mapping[str, float]
+    seed: int
+
+    def robot_values(self) -> dict[str, float]:
+        return {k: v for k, v in self.values.items() if not k.startswith(CONFIG_PREFIX)}
+
+    def config_values(self) -> dict[str, float]:
+        return {k[len(CONFIG_PREFIX):]: v for k, v in self.values.items()
+                if k.startswith(CONFIG_PREFIX)}
+
+
+# --------------------------------------------------------------------- parsing
+
+
+def check_key(key: str, option: str) -> str:
+    """A key as --set accepts it; raises SweepError for an empty or malformed one."""
+    key = key.strip()
+    parts = key.split(".")
+    if not key or not all(parts) or key == CONFIG_PREFIX.rstrip("."):
+        raise SweepError(f"{option} {key!r}: expected a dotted key such as wheels.friction "
+                         "or config.kp")
+    return key
+
+
+def _number(text: str, option: str, whole: str) -> float:
+    try:
+        value = float(text.strip())
+    except ValueError:
+        raise SweepError(f"{option} {whole!r}: {text.strip()!r} is not a number "
+                         "(give plain numbers in SI units)") from None
+    if not math.isfinite(value):
+        raise SweepError(f"{option} {whole!r}: values must be finite")
+    return value
+
+
+def _clean(value: float) -> float:
+    """12 significant figures: 0.3:0.9:4 gives 0.5, not 0.49999999999999994."""
+    return float(f"{value:.12g}")
+
+
+def parse_vary(text: str) -> Axis:
+    """``KEY=START:STOP:N`` (N evenly spaced values, both ends included) or ``KEY=A,B,C``."""
+    key, sep, spec = text.partition("=")
+    if not sep:
+        raise SweepError(f"--vary {text!r}: expected KEY=START:STOP:N, "
+                         "e.g. wheels.friction=0.3:0.9:4")
+    key = check_key(key, "--vary")
+    parts = spec.split(":")
+    if len(parts) == 3:
+        start = _number(parts[0], "--vary", text)
+        stop = _number(parts[1], "--vary", text)
+        try:
+            count = int(parts[2].strip())
+        except ValueError:
+            count = 0
+        if not 1 <= count <= MAX_AXIS_POINTS:
+            raise SweepError(f"--vary {text!r}: N must be a whole number from 1 to "
+                             f"{MAX_AXIS_POINTS}, got {parts[2].strip()!r}")
+        values = tuple(_clean(v) for v in np.linspace(start, stop, count))
+    elif len(parts) == 1 and spec.strip():
+        values = tuple(_number(p, "--vary", text) for p in spec.split(","))
+    else:
+        raise SweepError(f"--vary {text!r}: expected KEY=START:STOP:N or KEY=A,B,C")
+    return Axis(key, values)
+
+
+_SPREAD = re.compile(r"^(?:±|\+-|\+/-)?\s*([0-9.]+(?:[eE][+-]?[0-9]+)?)\s*(%?)$")
+
+
+def parse_spread(text: str) -> Spread:
+    """``KEY=±X%`` (relative to the nominal value) or ``KEY=±X`` (absolute, SI units).
+
+    ``+-`` may stand for ``±``; a bare ``X%`` means ``±X%``.
+    """
+    key, sep, spec = text.partition("=")
+    if not sep:
+        raise SweepError(f"--spread {text!r}: expected KEY=±X% or KEY=±X, "
+                         "e.g. body.parts.0.mass=±5%")
+    key = check_key(key, "--spread")
+    match = _SPREAD.match(spec.strip())
+    if match is None:
+        raise SweepError(f"--spread {text!r}: expected ±X% (relative) or ±X (absolute, SI)")
+    amount = _number(match.group(1), "--spread", text)
+    relative = bool(match.group(2))
+    if relative:
+        if amount >= 100.0:
+            raise SweepError(f"--spread {text!r}: a relative spread must be below ±100%")
+        amount /= 100.0
+    return Spread(key, amount, relative)
+
+
+# --------------------------------------------------------------------- nominal values
+
+
+def nominal_value(key: str, robot: Mapping[str, Any], config: Mapping[str, Any]) -> float:
+    """The value ``key`` has before any sweep: from the SI robot description or the config."""
+    if key.startswith(CONFIG_PREFIX):
+        name = key[len(CONFIG_PREFIX):]
+        value = config.get(name)
+        if value is None:
+            raise SweepError(f"{key}: no value in the controller config to spread around; "
+                             f"give one with --set {key}=VALUE or a --config file")
+    else:
+        node: Any = robot
+        for part in key.split("."):
+            try:
+                node = node[int(part)] if isinstance(node, list) else node[part]
+            except (KeyError, IndexError, ValueError, TypeError):
+                raise SweepError(f"{key}: no such key in the robot description") from None
+        value = node
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise SweepError(f"{key}: the value {value!r} is not a number, so it cannot be spread")
+    return float(value)
+
+
+# --------------------------------------------------------------------- points
+
+
+def unit_draw(seed: int, sample: int, key: str) -> float:
+    """A uniform draw in [-1, 1) for ``key`` in Monte Carlo sample ``sample``."""
+    rng = np.random.default_rng([seed, sample, zlib.crc32(key.encode("utf-8"))])
+    return float(rng.uniform(-1.0, 1.0))
+
+
+def sample_seed(seed: int, sample: int) -> int:
+    """The run seed (sensor noise and bias) of Monte Carlo sample ``sample``."""
+    return int(np.random.SeedSequence([seed, sample]).generate_state(1)[0])
+
+
+def make_points(axes: Sequence[Axis], spreads: Sequence[Spread], samples: int, seed: int,
+                nominal: Callable[[str], float]) -> list[Point]:
+    """Every point of a sweep, numbered.
+
+    Without ``samples`` every point runs with the base ``seed`` (common random
+    numbers: neighbouring grid cells differ only in their parameters). With
+    ``samples`` = N each grid cell runs N samples; sample s draws each spread key
+    around its nominal value (the grid value when the key is also on an axis) and
+    runs with its own seed, both from (seed, s): every cell sees the same N
+    robots, and for a sweep without a grid s is the point number.
+    """
+    if seed < 0:
+        raise SweepError(f"the seed must be zero or more, got {seed}")
+    if samples < 0:
+        raise SweepError(f"--samples must be zero or more, got {samples}")
+    if spreads and not samples:
+        raise SweepError("--spread needs --samples N (how many robots to draw)")
+    keys = [a.key for a in axes]
+    if len(set(keys)) != len(keys):
+        raise SweepError("each key may appear in one --vary only")
+    spread_keys = [s.key for s in spreads]
+    if len(set(spread_keys)) != len(spread_keys):
+        raise SweepError("each key may appear in one --spread only")
+    nominals = {s.key: nominal(s.key) for s in spreads if s.key not in keys}
+    per_cell = max(samples, 1)
+    points: list[Point] = []
+    for cell, cell_values in enumerate(itertools.product(*(a.values for a in axes))):
+        fixed = dict(zip(keys, cell_values))
+        for sample in range(per_cell):
+            values = dict(fixed)
+            for spread in spreads:
+                base = fixed.get(spread.key, nominals.get(spread.key))
+                values[spread.key] = spread.apply(base, unit_draw(seed, sample, spread.key))
+            run_seed = sample_seed(seed, sample) if samples else seed
+            points.append(Point(cell * per_cell + sample, cell, sample, values, run_seed))
+    return points

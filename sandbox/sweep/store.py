@@ -1,0 +1,143 @@
+"""A sweep's output folder: what it runs, the rows as they arrive, the sorted table.
+
+- ``sweep.json``: the sweep's definition (robot, controller hash, test, settings,
+  axes, spreads, samples, seed). A rerun into the same folder must match it.
+- ``points.jsonl``: one JSON line per finished point, appended and flushed as each
+  run ends, so a crash or Ctrl-C loses at most the runs in progress. A rerun reads
+  it and skips the points already there (a torn last line is ignored).
+- ``results.csv``: every finished point, sorted by point number, rewritten at the
+  end of each call (also after an interruption). Floats are written with ``repr``,
+  so the table reads back exactly and does not depend on the order runs finished.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import Any
+
+from .jobs import FIGURES
+from .plan import SweepError
+
+DEFINITION = "sweep.json"
+POINTS = "points.jsonl"
+RESULTS = "results.csv"
+
+
+def _normal(data: Any) -> Any:
+    """The JSON round trip of ``data`` (tuples become lists), for comparisons."""
+    return json.loads(json.dumps(data, default=str))
+
+
+class SweepFolder:
+    """The output folder of one sweep; ``done`` maps point numbers to finished rows."""
+
+    def __init__(self, folder: Path, definition: dict[str, Any]):
+        self.folder = folder
+        folder.mkdir(parents=True, exist_ok=True)
+        definition = _normal(definition)
+        path = folder / DEFINITION
+        if path.is_file():
+            try:
+                known = json.loads(path.read_text(encoding="utf-8"))
+            except (OSError, ValueError) as err:
+                raise SweepError(f"{path}: cannot read the sweep definition ({err}); "
+                                 "choose another output folder") from None
+            if known != definition:
+                differs = sorted(k for k in set(known) | set(definition)
+                                 if known.get(k) != definition.get(k))
+                raise SweepError(
+                    f"{folder} holds a different sweep (it differs in: {', '.join(differs)}); "
+                    "choose another output folder, or delete this one to start again")
+        else:
+            scratch = path.with_suffix(".tmp")
+            scratch.write_text(json.dumps(definition, indent=2), encoding="utf-8")
+            os.replace(scratch, path)
+        self.done: dict[int, dict[str, Any]] = self._read_points()
+
+    def _read_points(self) -> dict[int, dict[str, Any]]:
+        path = self.folder / POINTS
+        done: dict[int, dict[str, Any]] = {}
+        if not path.is_file():
+            return done
+        with path.open(encoding="utf-8") as stream:
+            for line in stream:
+                try:
+                    row = json.loads(line)
+                    done[int(row["index"])] = row
+                except (ValueError, KeyError, TypeError):
+                    continue  # a line torn by a crash: that point runs again
+        return done
+
+    def add(self, row: dict[str, Any]) -> None:
+        """Append one finished point to points.jsonl and push it to the disk."""
+        path = self.folder / POINTS
+        needs_newline = path.is_file() and path.stat().st_size > 0 and not _ends_in_newline(path)
+        with path.open("a", encoding="utf-8") as stream:
+            if needs_newline:  # after a torn line, start clean
+                stream.write("\n")
+            stream.write(json.dumps(row) + "\n")
+            stream.flush()
+            os.fsync(stream.fileno())
+        self.done[int(row["index"])] = row
+
+    def rows(self) -> list[dict[str, Any]]:
+        return [self.done[i] for i in sorted(self.done)]
+
+
+def _ends_in_newline(path: Path) -> bool:
+    with path.open("rb") as stream:
+        stream.seek(-1, os.SEEK_END)
+        return stream.read(1) == b"\n"
+
+
+def result_columns(keys: Sequence[str], rows: Iterable[dict[str, Any]]) -> list[str]:
+    """Columns of results.csv: point, parameters, seed, verdict, figures, checks, message."""
+    checks: list[str] = []
+    for row in rows:
+        for check in row.get("checks", []):
+            if check["column"] not in checks:
+                checks.append(check["column"])
+    check_columns = [c for name in checks for c in (name, f"{name}.passed")]
+    return ["index", "cell", "sample", *keys, "seed", "status", "passed", *FIGURES,
+            *check_columns, "message"]
+
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def flat_row(row: dict[str, Any]) -> dict[str, Any]:
+    """A stored row with its parameter values and checks as plain columns."""
+    flat = {k: v for k, v in row.items() if k not in ("values", "checks")}
+    flat.update(row.get("values", {}))
+    for check in row.get("checks", []):
+        flat[check["column"]] = check["value"]
+        flat[f"{check['column']}.passed"] = check["passed"]
+    return flat
+
+
+def results_csv_text(keys: Sequence[str], rows: Sequence[dict[str, Any]]) -> str:
+    """results.csv as text (rows in the order given: callers sort by point number)."""
+    columns = result_columns(keys, rows)
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(columns)
+    for row in rows:
+        flat = flat_row(row)
+        writer.writerow([_cell(flat.get(c)) for c in columns])
+    return buffer.getvalue()
+
+
+def write_text_atomic(path: Path, text: str) -> None:
+    scratch = path.with_name(path.name + ".tmp")
+    scratch.write_text(text, encoding="utf-8")
+    os.replace(scratch, path)
