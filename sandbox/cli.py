@@ -526,3 +526,136 @@ def analyze(
     if emit_config is not None and not as_json:
         typer.echo(f"wrote {emit_config} (use it with --config)")
     raise typer.Exit(code)
+
+
+class _ProgressLine:
+    """A one-line progress bar on stderr: done/total, runs per second, time left."""
+
+    def __init__(self, label: str):
+        from .sweep import ProgressClock
+
+        self.label = label
+        self.clock = ProgressClock()
+        self.shown = False
+
+    def __call__(self, done: int, total: int) -> None:
+        rate, left = self.clock.update(done, total)
+        width = 24
+        filled = int(width * done / total) if total else width
+        bar = "#" * filled + "-" * (width - filled)
+        speed = "" if rate is None else f", {rate:.2f} runs/s"
+        eta = "" if left is None else f", {left:.0f} s left"
+        sys.stderr.write(f"\r{self.label} [{bar}] {done}/{total}{speed}{eta}   ")
+        sys.stderr.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\n")
+
+
+ClusterOption = Annotated[str | None, typer.Option(
+    "--cluster", help="Run on a Dask scheduler at this address, or 'local' to start a "
+    "local Dask cluster.")]
+
+
+@app.command()
+@handles_errors
+def sweep(
+    robot: RobotArg,
+    controller: ControllerArg,
+    vary: Annotated[list[str] | None, typer.Option(
+        "--vary", help="KEY=START:STOP:N (or KEY=A,B,C); any key --set takes, SI numbers. "
+        "Several make a grid.")] = None,
+    samples: Annotated[int, typer.Option(
+        "--samples", help="Monte Carlo: robots drawn within the --spread tolerances.")] = 0,
+    spread: Annotated[list[str] | None, typer.Option(
+        "--spread", help="KEY=±X% (relative) or KEY=±X (absolute), drawn uniformly.")] = None,
+    test: Annotated[str | None, typer.Option(
+        "--test", help="A built-in test name or a test file (YAML).")] = None,
+    duration: Annotated[float | None, typer.Option(
+        "--duration", help="Simulated seconds per run (default 10, or the test's own).")] = None,
+    tilt: Annotated[float, typer.Option("--tilt", help="Starting tilt, degrees.")] = 0.0,
+    figure: Annotated[str, typer.Option(
+        "--figure", help="Figure shown in the table and heatmap.")] = "max_abs_pitch_deg",
+    seed: SeedOption = 0,
+    set_: SetOption = None,
+    config_file: ConfigOption = None,
+    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    workers: WorkersOption = None,
+    cluster: ClusterOption = None,
+    out: Annotated[Path | None, typer.Option(
+        "--out", help="Sweep folder; rerunning with the same folder skips finished points.")
+    ] = None,
+) -> None:
+    """Many runs over a grid of values and/or robots drawn within part tolerances."""
+    from .robot import load_robot
+    from .sweep import sweep_command
+
+    robot_sets, config_sets = _split_sets(set_)
+    spec = load_robot(robot, robot_sets)
+    config = {**_load_config_file(config_file), **config_sets}
+    settings = _settings_from(controller, config, duration, tilt, seed, rate)
+    if not vary and not samples:
+        raise BadInput("give at least one --vary KEY=START:STOP:N, or --samples N with --spread")
+    progress = _ProgressLine("runs")
+    try:
+        report = sweep_command(spec, settings, vary=vary or [], spread=spread or [],
+                               samples=samples, test=test, duration_given=duration is not None,
+                               workers=workers, cluster=cluster, out=out, figure=figure,
+                               progress=progress)
+    finally:
+        progress.close()
+    typer.echo(report.text())
+    raise typer.Exit(EXIT_INTERRUPTED if report.interrupted else EXIT_OK)
+
+
+@app.command()
+@handles_errors
+def tune(
+    robot: RobotArg,
+    controller: ControllerArg,
+    gains: Annotated[str, typer.Option(
+        "--gains", help="Config keys to tune, comma-separated: config.kp,config.kd")],
+    test: Annotated[list[str] | None, typer.Option(
+        "--test", help="Test(s) the cost is measured on (default: push).")] = None,
+    start: Annotated[list[str] | None, typer.Option(
+        "--start", help="Starting value, e.g. --start config.kp=4 (default: config or the "
+        "controller's own).")] = None,
+    method: Annotated[str, typer.Option(
+        "--method", help="nelder-mead or powell (scipy.optimize).")] = "nelder-mead",
+    max_evaluations: Annotated[int, typer.Option(
+        "--max-evaluations", help="At most this many gain sets are tried.")] = 40,
+    duration: Annotated[float | None, typer.Option(
+        "--duration", help="Simulated seconds per run (default: the test's own).")] = None,
+    seed: SeedOption = 0,
+    set_: SetOption = None,
+    config_file: ConfigOption = None,
+    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    workers: WorkersOption = None,
+    cluster: ClusterOption = None,
+    out: Annotated[Path | None, typer.Option("--out", help="Tuning folder.")] = None,
+) -> None:
+    """Search controller gains that keep the robot up and steady through the tests."""
+    from .robot import load_robot
+    from .sweep import tune_command
+
+    robot_sets, config_sets = _split_sets(set_)
+    spec = load_robot(robot, robot_sets)
+    config = {**_load_config_file(config_file), **config_sets}
+    settings = _settings_from(controller, config, duration, 0.0, seed, rate)
+    keys = [k.strip() for k in gains.split(",") if k.strip()]
+    progress = _ProgressLine("evaluations")
+    try:
+        result = tune_command(spec, settings, gains=keys, tests=tuple(test or ["push"]),
+                              start=start or [], method=method, max_evaluations=max_evaluations,
+                              duration_given=duration is not None, workers=workers,
+                              cluster=cluster, out=out, progress=progress)
+    except KeyboardInterrupt:
+        progress.close()
+        _fail("interrupted before the first evaluation finished", EXIT_INTERRUPTED)
+    progress.close()
+    typer.echo(result.text())
+    if result.stopped == "interrupted":
+        raise typer.Exit(EXIT_INTERRUPTED)
+    raise typer.Exit(EXIT_OK if result.after.passed else EXIT_FELL)
