@@ -57,17 +57,19 @@ class TraceWriter:
     block of rows; a name first logged later is counted in ``dropped_channels``.
     """
 
-    def __init__(self, path: Path, block_rows: int = 200):
+    def __init__(self, path: Path | None, block_rows: int = 200):
         self.path = path
         self.block_rows = block_rows
-        self._handle = open(path, "w", newline="", encoding="utf-8")  # noqa: SIM115
+        self._handle = None if path is None else open(path, "w", newline="",  # noqa: SIM115
+                                                      encoding="utf-8")
         self._rows: list[tuple] = []
         self._logs: list[dict[str, float]] = []
         self._log_names: list[str] | None = None
         self._format = ""
+        self._format_all = ""
         self.dropped_channels: set[str] = set()
-        self.columns: list[list[float]] = [[] for _ in COLUMNS]
-        self.log_columns: dict[str, list[float]] = {}
+        self._blocks: list[np.ndarray] = []  # flushed rows, one array per block
+        self._log_blocks: list[np.ndarray] = []
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
         """One row: values in COLUMNS order, then the controller's logged channels."""
@@ -77,55 +79,61 @@ class TraceWriter:
             self.flush()
 
     def flush(self) -> None:
-        if not self._rows:
-            if self._log_names is None:
-                self._start([])
-            return
+        """Write the buffered rows (and keep them, as arrays, for the figures)."""
         if self._log_names is None:
             names: list[str] = []
             for logs in self._logs:
                 names.extend(k for k in logs if k not in names)
             self._start(names)
+        if not self._rows:
+            return
         names = self._log_names or []
+        count = len(names)
+        log_values = []
         lines = []
-        fmt = self._format
         for row, logs in zip(self._rows, self._logs):
-            text = fmt % row
-            if names:
-                text += "," + ",".join(_cell(logs.get(n)) for n in names)
-            # also when the first block logged nothing: a later channel is still dropped
-            if len(logs) > len(names) or any(k not in names for k in logs):
+            if len(logs) == count and all(n in logs for n in names):
+                values = tuple(logs[n] for n in names)
+                if self._handle is not None:
+                    lines.append(self._format_all % (row + values))
+            else:  # a channel missing this tick (empty cell) or new after the first block
                 self.dropped_channels.update(k for k in logs if k not in names)
-            lines.append(text)
-            for column, value in zip(self.columns, row):
-                column.append(value)
-            for n in names:
-                value = logs.get(n)
-                self.log_columns[n].append(math.nan if value is None else value)
-        self._handle.write("\n".join(lines) + "\n")
-        self._handle.flush()
+                values = tuple(logs.get(n, math.nan) for n in names)
+                if self._handle is not None:
+                    cells = "".join("," + _cell(logs.get(n)) for n in names)
+                    lines.append(self._format % row + cells)
+            log_values.append(values)
+        if self._handle is not None:
+            self._handle.write("\n".join(lines) + "\n")
+            self._handle.flush()
+        self._blocks.append(np.array(self._rows, dtype=float).reshape(-1, len(COLUMNS)))
+        self._log_blocks.append(np.array(log_values, dtype=float).reshape(len(log_values), count))
         self._rows.clear()
         self._logs.clear()
 
     def _start(self, names: list[str]) -> None:
         self._log_names = names
-        for n in names:
-            self.log_columns[n] = []
-        header = list(COLUMNS) + [LOG_PREFIX + n for n in names]
-        csv.writer(self._handle, lineterminator="\n").writerow(header)
         self._format = ",".join("%d" if c in _INT_COLUMNS else "%.9g" for c in COLUMNS)
+        self._format_all = self._format + ",%.9g" * len(names)
+        if self._handle is not None:
+            header = list(COLUMNS) + [LOG_PREFIX + n for n in names]
+            csv.writer(self._handle, lineterminator="\n").writerow(header)
 
     def close(self) -> None:
-        if self._handle.closed:
-            return
         self.flush()
-        self._handle.close()
+        if self._handle is not None and not self._handle.closed:
+            self._handle.close()
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The recorded columns (flushed rows) as numpy arrays, logs as ``log.<name>``."""
-        out = {name: np.asarray(col, dtype=float) for name, col in zip(COLUMNS, self.columns)}
-        for name, col in self.log_columns.items():
-            out[LOG_PREFIX + name] = np.asarray(col, dtype=float)
+        names = self._log_names or []
+        rows = (np.concatenate(self._blocks) if self._blocks
+                else np.zeros((0, len(COLUMNS))))
+        logs = (np.concatenate(self._log_blocks) if self._log_blocks
+                else np.zeros((0, len(names))))
+        out = {name: rows[:, i].copy() for i, name in enumerate(COLUMNS)}
+        for i, name in enumerate(names):
+            out[LOG_PREFIX + name] = logs[:, i].copy()
         return out
 
 

@@ -35,7 +35,7 @@ from .control import (
 )
 from .imu import Encoders, Imu
 from .metrics import run_figures
-from .record import COLUMNS, TraceWriter, write_json, write_yaml
+from .record import TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
 from .world import Ground, World
 
@@ -147,7 +147,9 @@ class Simulation:
             folder.mkdir(parents=True, exist_ok=True)
         world = self.world_factory(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
         try:
-            writer = TraceWriter(folder / "trace.csv") if folder is not None else _MemoryTrace()
+            # without a folder the trace is kept in memory only (sweeps need the figures)
+            writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
+                                 block_rows=200 if folder is not None else 2000)
         except OSError:
             world.close()
             raise
@@ -177,8 +179,9 @@ class Simulation:
             # the first sample has no earlier velocity, so no acceleration
             truths = {0: self._imu_truth(state, mount, gravity, None, dt)}
             sample_truth = truths[0]
+            period, latency_steps, imu_truth = self.period, self.latency_steps, self._imu_truth
             for tick in range(n_ticks + 1):
-                t = tick * self.period
+                t = tick * period
                 if timeline is not None:
                     timeline.fire(t, x, world, drive, imu, encoders)
                 # -- the IMU sample the controller sees now
@@ -194,7 +197,7 @@ class Simulation:
                 angle_l, angle_r, rate_l, rate_r = world.wheel_state()
                 ticks_lr = encoders.ticks(angle_l, angle_r)
                 speed = world.forward_speed(state)
-                x += 0.5 * (speed + last_speed) * self.period if tick else 0.0
+                x += 0.5 * (speed + last_speed) * period if tick else 0.0
                 last_speed = speed
                 pitch = state.pitch
                 # -- the controller
@@ -211,7 +214,7 @@ class Simulation:
                 except ControllerError as err:
                     raise ControllerError(f"at t = {t:.3f} s: step {err}") from None
                 clipped += was_clipped
-                pending.append((step + self.latency_steps, left, right))
+                pending.append((step + latency_steps, left, right))
                 # -- the trace row
                 pose = state.com
                 q = state.com_orientation
@@ -244,8 +247,8 @@ class Simulation:
                         world.advance(stop - step, drive)
                         step = stop
                     state = world.body_state()
-                    truths[target] = self._imu_truth(
-                        state, mount, gravity, world.previous_point_velocity(state, mount), dt)
+                    sample_truth = imu_truth(state, mount, gravity,
+                                             world.previous_point_velocity(state, mount), dt)
                     continue
                 # With sensor latency the newest sample of this period may be seen only
                 # a tick later (when none falls between the tick and tick + latency).
@@ -290,9 +293,9 @@ class Simulation:
         except KeyboardInterrupt:
             status, message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
         finally:
+            wall = time.perf_counter() - wall_start  # the loop itself, trace included
             writer.close()
             world.close()
-        wall = time.perf_counter() - wall_start
         trace = writer.arrays()
         summary = self._summary(status, trace, ticks_run, fell_at, clipped, wall, writer)
         if folder is not None:
@@ -347,36 +350,6 @@ def _call(method: Callable, name: str, t: float, cls: type, *args):
         at = f" ({where})" if where else ""
         raise ControllerError(
             f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}") from err
-
-
-class _MemoryTrace(TraceWriter):
-    """A trace kept in memory only (sweeps that need figures, not files)."""
-
-    def __init__(self):  # noqa: D107 - no file
-        self._rows, self._logs = [], []
-        self._log_names = None
-        self.dropped_channels = set()
-        self.columns = [[] for _ in COLUMNS]
-        self.log_columns = {}
-        self.block_rows = 10**9
-
-    def flush(self) -> None:
-        if self._log_names is None:
-            names: list[str] = []
-            for logs in self._logs:
-                names.extend(k for k in logs if k not in names)
-            self._log_names = names
-            self.log_columns = {n: [] for n in names}
-        for row, logs in zip(self._rows, self._logs):
-            for column, value in zip(self.columns, row):
-                column.append(value)
-            for n in self._log_names:
-                self.log_columns[n].append(logs.get(n, math.nan))
-        self._rows.clear()
-        self._logs.clear()
-
-    def close(self) -> None:
-        self.flush()
 
 
 def file_hash(path: Path) -> str:
