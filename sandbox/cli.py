@@ -9,6 +9,7 @@ import functools
 import json
 import math
 import sys
+from dataclasses import replace
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -88,6 +89,8 @@ ConfigOption = Annotated[Path | None, typer.Option(
 SeedOption = Annotated[int, typer.Option("--seed", help="Seed for every random source.")]
 WorkersOption = Annotated[int | None, typer.Option(
     "--workers", help="Parallel processes (default: all cores).")]
+RateOption = Annotated[float | None, typer.Option(
+    "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")]
 
 
 def parse_sets(items: list[str] | None) -> dict[str, Any]:
@@ -292,8 +295,7 @@ def run(
     seed: SeedOption = 0,
     set_: SetOption = None,
     config_file: ConfigOption = None,
-    rate: Annotated[float | None, typer.Option(
-        "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")] = None,
+    rate: RateOption = None,
     latency: Annotated[float, typer.Option(
         "--latency", help="Delay from the controller's output to the bridge, ms.")] = 0.0,
     physics_step: Annotated[float, typer.Option(
@@ -306,18 +308,12 @@ def run(
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
 ) -> None:
     """One headless run of a controller on a robot; writes a run folder."""
-    from .robot import load_robot
-    from .runner import RunSettings
     from .session import run_once
 
-    robot_sets, config_sets = _split_sets(set_)
-    spec = load_robot(robot, robot_sets)
-    config = {**_load_config_file(config_file), **config_sets}
-    settings = RunSettings(
-        controller=controller, config=config, duration=10.0 if duration is None else duration,
-        tilt=math.radians(tilt), seed=seed, physics_dt=physics_step / 1000.0, rate_hz=rate,
-        latency=latency / 1000.0, fall_limit=math.radians(fall_limit),
-    )
+    spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
+                                         seed, rate)
+    settings = replace(settings, physics_dt=physics_step / 1000.0, latency=latency / 1000.0,
+                       fall_limit=math.radians(fall_limit))
     if settings.duration <= 0:
         raise BadInput(f"--duration must be positive, got {settings.duration:g}")
     folder = out
@@ -339,6 +335,19 @@ def _settings_from(controller: str, config: dict, duration: float | None, tilt: 
                        tilt=math.radians(tilt), seed=seed, rate_hz=rate)
 
 
+def _robot_and_settings(robot: Path, controller: str, sets: list[str] | None,
+                        config_file: Path | None, duration: float | None, tilt: float,
+                        seed: int, rate: float | None):
+    """The robot with its --set overrides, and run settings with the controller's config
+    (--config file, then config.* --set values on top)."""
+    from .robot import load_robot
+
+    robot_sets, config_sets = _split_sets(sets)
+    spec = load_robot(robot, robot_sets)
+    config = {**_load_config_file(config_file), **config_sets}
+    return spec, _settings_from(controller, config, duration, tilt, seed, rate)
+
+
 @app.command()
 @handles_errors
 def suite(
@@ -347,7 +356,7 @@ def suite(
     seed: SeedOption = 0,
     set_: SetOption = None,
     config_file: ConfigOption = None,
-    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    rate: RateOption = None,
     workers: WorkersOption = None,
     out: Annotated[Path | None, typer.Option(
         "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
@@ -357,13 +366,10 @@ def suite(
     from .control import load_controller_class
     from .events import BUILTIN_NAMES
     from .record import default_run_dir
-    from .robot import load_robot
     from .suite import run_suite
 
-    robot_sets, config_sets = _split_sets(set_)
-    spec = load_robot(robot, robot_sets)
-    config = {**_load_config_file(config_file), **config_sets}
-    settings = _settings_from(controller, config, None, 0.0, seed, rate)
+    spec, settings = _robot_and_settings(robot, controller, set_, config_file, None, 0.0, seed,
+                                         rate)
     load_controller_class(controller)  # a broken script stops here, before any worker starts
     label = _controller_label(controller)
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
@@ -581,7 +587,7 @@ def sweep(
     seed: SeedOption = 0,
     set_: SetOption = None,
     config_file: ConfigOption = None,
-    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    rate: RateOption = None,
     workers: WorkersOption = None,
     cluster: ClusterOption = None,
     out: Annotated[Path | None, typer.Option(
@@ -589,13 +595,10 @@ def sweep(
     ] = None,
 ) -> None:
     """Many runs over a grid of values and/or robots drawn within part tolerances."""
-    from .robot import load_robot
     from .sweep import sweep_command
 
-    robot_sets, config_sets = _split_sets(set_)
-    spec = load_robot(robot, robot_sets)
-    config = {**_load_config_file(config_file), **config_sets}
-    settings = _settings_from(controller, config, duration, tilt, seed, rate)
+    spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
+                                         seed, rate)
     if not vary and not samples:
         raise BadInput("give at least one --vary KEY=START:STOP:N, or --samples N with --spread")
     progress = _ProgressLine("runs")
@@ -631,19 +634,16 @@ def tune(
     seed: SeedOption = 0,
     set_: SetOption = None,
     config_file: ConfigOption = None,
-    rate: Annotated[float | None, typer.Option("--rate", help="Controller rate, Hz.")] = None,
+    rate: RateOption = None,
     workers: WorkersOption = None,
     cluster: ClusterOption = None,
     out: Annotated[Path | None, typer.Option("--out", help="Tuning folder.")] = None,
 ) -> None:
     """Search controller gains that keep the robot up and steady through the tests."""
-    from .robot import load_robot
     from .sweep import tune_command
 
-    robot_sets, config_sets = _split_sets(set_)
-    spec = load_robot(robot, robot_sets)
-    config = {**_load_config_file(config_file), **config_sets}
-    settings = _settings_from(controller, config, duration, 0.0, seed, rate)
+    spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, 0.0,
+                                         seed, rate)
     keys = [k.strip() for k in gains.split(",") if k.strip()]
     progress = _ProgressLine("evaluations")
     try:
