@@ -231,8 +231,12 @@ class DriveTrain:
         else:
             current = (duty * supply - motor.back_emf_constant * rate) / motor.resistance
         drive = motor.torque_constant * current
-        friction = coulomb_friction(drive, rate, motor.friction_torque, self._rest_rate)
-        return drive + friction, current
+        rest_rate = self._rest_rate
+        if rate > rest_rate:  # moving: the usual case, without a call (runs every step)
+            return drive - motor.friction_torque, current
+        if rate < -rest_rate:
+            return drive + motor.friction_torque, current
+        return drive + coulomb_friction(drive, rate, motor.friction_torque, rest_rate), current
 
     def _terminal(self, charge: float, battery_current: float) -> float:
         """Terminal voltage (V): open-circuit voltage minus the internal drop, never below 0."""

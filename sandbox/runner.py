@@ -165,6 +165,9 @@ class Simulation:
         gravity = world.gravity_vector()
         coupled = world.reflected_inertia > 0.0  # the world then reads the body every step
         fast_sampling = coupled and not sensor_latency_steps
+        # a sample every physics step and no sensor latency: the sample is always the tick's
+        every_step = not sensor_latency_steps and abs(imu_rate * dt - 1.0) < 1e-9
+        sampled_now = False
         try:
             controller = make_controller(self.controller_class, s.config, self.robot_facts)
             if hasattr(controller, "reset"):
@@ -180,12 +183,14 @@ class Simulation:
             truths = {0: self._imu_truth(state, mount, gravity, None, dt)}
             sample_truth = truths[0]
             period, latency_steps, imu_truth = self.period, self.latency_steps, self._imu_truth
+            step_controller = controller.step
             for tick in range(n_ticks + 1):
                 t = tick * period
                 if timeline is not None:
                     timeline.fire(t, x, world, drive, imu, encoders)
                 # -- the IMU sample the controller sees now
-                sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
+                sample_at = step if sampled_now else sample_step(step, dt, imu_rate,
+                                                                  sensor_latency_steps)
                 if sample_at in truths:
                     sample_truth = truths[sample_at]
                     if len(truths) > 1:
@@ -208,7 +213,10 @@ class Simulation:
                 reading.battery_v = drive.battery_voltage
                 if timeline is not None:
                     reading.setpoint = timeline.setpoint
-                out = _call(controller.step, "step", t, self.controller_class, reading)
+                try:
+                    out = step_controller(reading)
+                except Exception as err:
+                    raise _failure(err, "step", t, self.controller_class) from err
                 try:
                     left, right, was_clipped = check_duties(out)
                 except ControllerError as err:
@@ -235,8 +243,10 @@ class Simulation:
                     break
                 # -- physics until the next tick, stopping where something is due
                 target = step + spt
-                next_sample = sample_step(target, dt, imu_rate, sensor_latency_steps)
-                if fast_sampling and next_sample == target:
+                next_sample = target if every_step else sample_step(target, dt, imu_rate,
+                                                                   sensor_latency_steps)
+                sampled_now = fast_sampling and next_sample == target
+                if sampled_now:
                     # The usual case: the sample is taken at the tick itself and the coupled
                     # world remembers the body's velocity before its last step.
                     while step < target:
@@ -339,17 +349,21 @@ class Simulation:
         }
 
 
+def _failure(err: Exception, name: str, t: float, cls: type) -> ControllerError:
+    """A controller method's exception as a ControllerError naming the time and the line."""
+    if isinstance(err, ControllerError):
+        return ControllerError(f"at t = {t:.3f} s: {err}")
+    where = script_location(err, cls)
+    at = f" ({where})" if where else ""
+    return ControllerError(f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}")
+
+
 def _call(method: Callable, name: str, t: float, cls: type, *args):
     """Call a controller method; anything it raises becomes a ControllerError naming t."""
     try:
         return method(*args)
-    except ControllerError as err:
-        raise ControllerError(f"at t = {t:.3f} s: {err}") from err
     except Exception as err:
-        where = script_location(err, cls)
-        at = f" ({where})" if where else ""
-        raise ControllerError(
-            f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}") from err
+        raise _failure(err, name, t, cls) from err
 
 
 def file_hash(path: Path) -> str:
