@@ -89,10 +89,11 @@ class TraceWriter:
             return
         names = self._log_names or []
         count = len(names)
+        name_set = set(names)
         log_values = []
         lines = []
         for row, logs in zip(self._rows, self._logs):
-            if len(logs) == count and all(n in logs for n in names):
+            if logs.keys() == name_set:  # every channel, and no new one: the usual row
                 values = tuple(logs[n] for n in names)
                 if self._handle is not None:
                     lines.append(self._format_all % (row + values))
