@@ -209,8 +209,19 @@ class DriveTrain:
         if supply < 0.0:
             supply = 0.0
         duty_left, duty_right = self._duty_left, self._duty_right
-        torque_left, current_left = self._wheel(duty_left, rate_left, supply)
-        torque_right, current_right = self._wheel(duty_right, rate_right, supply)
+        motor = self.motor
+        ke, resistance = motor.back_emf_constant, motor.resistance
+        # both wheels written out: this runs every physics step (friction in _with_friction)
+        if duty_left == 0.0 and not self._brake_when_off:
+            current_left = 0.0
+        else:
+            current_left = (duty_left * supply - ke * rate_left) / resistance
+        if duty_right == 0.0 and not self._brake_when_off:
+            current_right = 0.0
+        else:
+            current_right = (duty_right * supply - ke * rate_right) / resistance
+        torque_left = self._with_friction(motor.torque_constant * current_left, rate_left)
+        torque_right = self._with_friction(motor.torque_constant * current_right, rate_right)
         self._current_left, self._current_right = current_left, current_right
         # Averaged sign-magnitude PWM: the supply carries the motor current for the duty
         # fraction of each period; a shorted (braking) motor draws nothing from it.
@@ -223,20 +234,18 @@ class DriveTrain:
 
     # ----------------------------------------------------------------- internals
 
-    def _wheel(self, duty: float, rate: float, supply: float) -> tuple[float, float]:
-        """(torque N·m, current A) of one wheel motor for this step."""
-        motor = self.motor
-        if duty == 0.0 and not self._brake_when_off:
-            current = 0.0  # open bridge: no current (back-EMF below the supply plus diodes)
-        else:
-            current = (duty * supply - motor.back_emf_constant * rate) / motor.resistance
-        drive = motor.torque_constant * current
+    def _with_friction(self, drive: float, rate: float) -> float:
+        """Wheel torque (N·m): the motor's ``drive`` torque with Coulomb friction added.
+
+        At zero duty an open bridge (coast) passes no current: the back-EMF stays
+        below the supply plus the diodes' drop.
+        """
         rest_rate = self._rest_rate
-        if rate > rest_rate:  # moving: the usual case, without a call (runs every step)
-            return drive - motor.friction_torque, current
+        if rate > rest_rate:  # moving: the usual case, without a further call
+            return drive - self.motor.friction_torque
         if rate < -rest_rate:
-            return drive + motor.friction_torque, current
-        return drive + coulomb_friction(drive, rate, motor.friction_torque, rest_rate), current
+            return drive + self.motor.friction_torque
+        return drive + coulomb_friction(drive, rate, self.motor.friction_torque, rest_rate)
 
     def _terminal(self, charge: float, battery_current: float) -> float:
         """Terminal voltage (V): open-circuit voltage minus the internal drop, never below 0."""
