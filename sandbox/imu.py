@@ -112,24 +112,18 @@ class _OutputWord:
         return cls(-half_codes * noise.lsb, (half_codes - 1) * noise.lsb, noise.lsb)
 
 
-def _digitise(x: float, y: float, z: float, word: _OutputWord) -> Vector3:
-    """Three axis values clipped to the word's limits and rounded to the nearest code.
-
-    Plain floats, no numpy: this runs every controller tick.
-    """
-    low, high, lsb = word.low, word.high, word.lsb
-    return (
-        math.floor(min(max(x, low), high) / lsb + 0.5) * lsb,
-        math.floor(min(max(y, low), high) / lsb + 0.5) * lsb,
-        math.floor(min(max(z, low), high) / lsb + 0.5) * lsb,
-    )
-
-
 class Imu:
     """A 3-axis gyro and 3-axis accelerometer sampled at one rate, from one seed.
 
     ``imu_spec`` is a robot description's ``imu`` section (``rate``, ``gyro``,
     ``accel``; SI). The same seed gives the same readings for the same inputs.
+
+    Random numbers come a block of reads at a time. For each read of a block
+    the bias walk's running sum and the white noise are added up ahead, in
+    numpy, assuming the number of samples between reads stays what it was
+    (``_block_scale`` is its square root); a read that differs, and a bias
+    fault, go into ``_correction``. So a read is a few additions and the
+    rounding to the output code.
     """
 
     def __init__(self, imu_spec: Any, seed: int):
@@ -145,8 +139,9 @@ class Imu:
         self._rng = np.random.default_rng(seed)
         # The turn-on bias comes first from the generator, so it depends on the seed only.
         turn_on = self._rng.standard_normal(6)
-        self._gyro_bias = [float(v) * self.gyro_noise.bias_std for v in turn_on[:3]]
-        self._accel_bias = [float(v) * self.accel_noise.bias_std for v in turn_on[3:]]
+        # bias (gyro x, y, z, accel x, y, z) at the start of the present block
+        self._block_base = np.concatenate([turn_on[:3] * self.gyro_noise.bias_std,
+                                           turn_on[3:] * self.accel_noise.bias_std])
         self._scale = np.repeat(
             [
                 self.gyro_noise.walk_std(rate),
@@ -156,25 +151,41 @@ class Imu:
             ],
             3,
         )
-        self._rows: list[list[float]] = []
+        self._walk = np.zeros((0, 6))  # this block's walk steps, one sample each
+        self._walk_sum = np.zeros((0, 6))  # their running sum, times _block_scale
+        self._offsets: list[list[float]] = []  # base + walk sum + white noise, per read
         self._next_row = 0
         self._block_rows = _FIRST_BLOCK_ROWS
+        self._block_scale = 1.0
+        self._usual_scale = 1.0
+        self._correction = [0.0] * 6
+        self._corrected = False
         self._last: tuple[Vector3, Vector3] | None = None
+
+    def _bias(self) -> list[float]:
+        """The present bias of the six axes (gyro rad/s, then accel m/s²)."""
+        bias = self._block_base.copy()
+        if self._next_row:
+            bias += self._walk_sum[self._next_row - 1]
+        return [float(b + c) for b, c in zip(bias, self._correction)]
 
     @property
     def gyro_bias(self) -> Vector3:
         """The gyro's current bias (rad/s, sensor axes)."""
-        return (self._gyro_bias[0], self._gyro_bias[1], self._gyro_bias[2])
+        bias = self._bias()
+        return (bias[0], bias[1], bias[2])
 
     @property
     def accel_bias(self) -> Vector3:
         """The accelerometer's current bias (m/s², sensor axes)."""
-        return (self._accel_bias[0], self._accel_bias[1], self._accel_bias[2])
+        bias = self._bias()
+        return (bias[3], bias[4], bias[5])
 
     def add_gyro_bias(self, step: Vector3) -> None:
         """Sensor fault: add ``step`` (rad/s, sensor axes) to the gyro bias from now on."""
         for axis in range(3):
-            self._gyro_bias[axis] += float(step[axis])
+            self._correction[axis] += float(step[axis])
+        self._corrected = True
 
     def read(
         self,
@@ -198,34 +209,46 @@ class Imu:
             walk_scale = 0.0  # first call: the sensor's first sample, no walk yet
         else:
             raise ValueError(f"samples_elapsed must be >= 0, got {samples_elapsed!r}")
+        if samples_elapsed:
+            self._usual_scale = walk_scale
 
-        if self._next_row >= len(self._rows):
+        k = self._next_row
+        if k >= len(self._offsets):
             self._draw_block()
-        row = self._rows[self._next_row]
-        self._next_row += 1
+            k = 0
+        self._next_row = k + 1
+        row = self._offsets[k]
+        if walk_scale != self._block_scale:  # not the elapsed count the block assumed
+            extra = (walk_scale - self._block_scale) * self._walk[k]
+            self._correction = [c + float(e) for c, e in zip(self._correction, extra)]
+            self._corrected = True
+        if self._corrected:
+            row = [r + c for r, c in zip(row, self._correction)]
 
-        gyro_bias, accel_bias = self._gyro_bias, self._accel_bias
-        gyro_bias[0] += walk_scale * row[0]
-        gyro_bias[1] += walk_scale * row[1]
-        gyro_bias[2] += walk_scale * row[2]
-        accel_bias[0] += walk_scale * row[6]
-        accel_bias[1] += walk_scale * row[7]
-        accel_bias[2] += walk_scale * row[8]
+        # saturate, then round to the nearest code (NaN fails in math.floor)
+        word = self._gyro_word
+        low, high, lsb = word.low, word.high, word.lsb
         try:
-            gyro = _digitise(
-                true_rate[0] + gyro_bias[0] + row[3],
-                true_rate[1] + gyro_bias[1] + row[4],
-                true_rate[2] + gyro_bias[2] + row[5],
-                self._gyro_word,
+            x = true_rate[0] + row[0]
+            y = true_rate[1] + row[1]
+            z = true_rate[2] + row[2]
+            gyro = (
+                math.floor((low if x < low else high if x > high else x) / lsb + 0.5) * lsb,
+                math.floor((low if y < low else high if y > high else y) / lsb + 0.5) * lsb,
+                math.floor((low if z < low else high if z > high else z) / lsb + 0.5) * lsb,
             )
             if self.accel_dropout:
                 accel = (0.0, 0.0, 0.0)
             else:
-                accel = _digitise(
-                    true_specific_force[0] + accel_bias[0] + row[9],
-                    true_specific_force[1] + accel_bias[1] + row[10],
-                    true_specific_force[2] + accel_bias[2] + row[11],
-                    self._accel_word,
+                word = self._accel_word
+                low, high, lsb = word.low, word.high, word.lsb
+                x = true_specific_force[0] + row[3]
+                y = true_specific_force[1] + row[4]
+                z = true_specific_force[2] + row[5]
+                accel = (
+                    math.floor((low if x < low else high if x > high else x) / lsb + 0.5) * lsb,
+                    math.floor((low if y < low else high if y > high else y) / lsb + 0.5) * lsb,
+                    math.floor((low if z < low else high if z > high else z) / lsb + 0.5) * lsb,
                 )
         except ValueError:  # math.floor of NaN
             raise ValueError(
@@ -236,8 +259,17 @@ class Imu:
         return self._last
 
     def _draw_block(self) -> None:
+        """Draw the next block's numbers; fold the last block's walk and corrections in."""
+        self._block_base = np.asarray(self._bias())
+        self._correction = [0.0] * 6
+        self._corrected = False
+        self._block_scale = self._usual_scale
+        # columns: gyro walk 0-2, gyro white 3-5, accel walk 6-8, accel white 9-11
         block = self._rng.standard_normal((self._block_rows, _COLUMNS)) * self._scale
-        self._rows = block.tolist()
+        self._walk = block[:, [0, 1, 2, 6, 7, 8]]
+        white = block[:, [3, 4, 5, 9, 10, 11]]
+        self._walk_sum = np.cumsum(self._walk * self._block_scale, axis=0)
+        self._offsets = (self._block_base + self._walk_sum + white).tolist()
         self._next_row = 0
         self._block_rows = min(2 * self._block_rows, _BLOCK_ROWS)
 

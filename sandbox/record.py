@@ -1,7 +1,10 @@
 """The run folder: streamed trace CSV, summary JSON, resolved run.yaml.
 
-Rows are buffered and written in blocks of one simulated second or so, and
-flushed on every exit path, so an exception or Ctrl-C keeps what was recorded.
+Rows are buffered in blocks of half a simulated second or so and handed to a
+trace-writing process (:mod:`sandbox.tracefile`) that writes and flushes each
+block as it comes; on every exit path the rest is handed over and the file
+completed, so an exception or Ctrl-C keeps what was recorded, and even a
+simulation killed outright leaves every block it sent.
 """
 
 from __future__ import annotations
@@ -9,7 +12,11 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
+import pickle
 import re
+import subprocess
+import sys
 import time
 from pathlib import Path
 from typing import Any
@@ -17,21 +24,16 @@ from typing import Any
 import numpy as np
 import yaml
 
-TRUE_COLUMNS = (
-    "t_s", "x_m", "pitch_rad", "pitch_rate_rad_s", "yaw_rad", "speed_m_s",
-    "duty_l", "duty_r", "current_l_a", "current_r_a", "battery_v",
-    "gyro_x_rad_s", "gyro_y_rad_s", "gyro_z_rad_s",
-    "accel_x_m_s2", "accel_y_m_s2", "accel_z_m_s2", "ticks_l", "ticks_r",
-)
-# The body's pose as the engine holds it (centre of mass + quaternion) and the
-# wheel angles relative to the body: enough to replay the run for a video.
-POSE_COLUMNS = (
-    "pose_x_m", "pose_y_m", "pose_z_m", "pose_qx", "pose_qy", "pose_qz", "pose_qw",
-    "wheel_l_rad", "wheel_r_rad",
-)
-COLUMNS = TRUE_COLUMNS + POSE_COLUMNS
-_INT_COLUMNS = {"ticks_l", "ticks_r"}
-LOG_PREFIX = "log."
+from . import tracefile
+from .tracefile import COLUMNS, LENGTH, LOG_PREFIX, POSE_COLUMNS, TRUE_COLUMNS, TraceBlocks
+
+try:
+    import fcntl
+except ImportError:  # not on Windows
+    fcntl = None
+
+__all__ = ["COLUMNS", "LOG_PREFIX", "POSE_COLUMNS", "TRUE_COLUMNS", "TraceWriter", "read_trace",
+           "write_json", "write_yaml", "default_run_dir"]
 
 
 def default_run_dir(root: Path, robot: str, controller: str, test: str) -> Path:
@@ -53,23 +55,29 @@ def _slug(text: str) -> str:
 class TraceWriter:
     """Streams trace rows to ``trace.csv``; keeps the numeric columns for metrics.
 
-    Controller channels (``log.<name>``) are fixed by the names seen in the first
-    block of rows; a name first logged later is counted in ``dropped_channels``.
+    With a path, blocks of rows go to a trace-writing process
+    (:mod:`sandbox.tracefile`) that formats and writes them on another core;
+    without one, the rows are only kept, in this process. Controller channels
+    (``log.<name>``) are fixed by the names seen in the first block of rows; a
+    name first logged later is counted in ``dropped_channels``.
     """
 
-    def __init__(self, path: Path | None, block_rows: int = 200):
+    def __init__(self, path: Path | None, block_rows: int = 100):
         self.path = path
         self.block_rows = block_rows
-        self._handle = None if path is None else open(path, "w", newline="",  # noqa: SIM115
-                                                      encoding="utf-8")
         self._rows: list[tuple] = []
         self._logs: list[dict[str, float]] = []
-        self._log_names: list[str] | None = None
-        self._format = ""
-        self._format_all = ""
+        self._result: dict | None = None
         self.dropped_channels: set[str] = set()
-        self._blocks: list[np.ndarray] = []  # flushed rows, one array per block
-        self._log_blocks: list[np.ndarray] = []
+        self._blocks: TraceBlocks | None = None
+        self._process: subprocess.Popen | None = None
+        if path is None:
+            self._blocks = TraceBlocks()
+        else:
+            # created (or emptied) here, so a folder that cannot be written fails at once
+            with open(path, "w", encoding="utf-8"):
+                pass
+            self._process = _start_writer(path)
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
         """One row: values in COLUMNS order, then the controller's logged channels."""
@@ -79,67 +87,85 @@ class TraceWriter:
             self.flush()
 
     def flush(self) -> None:
-        """Write the buffered rows (and keep them, as arrays, for the figures)."""
-        if self._log_names is None:
-            names: list[str] = []
-            for logs in self._logs:
-                names.extend(k for k in logs if k not in names)
-            self._start(names)
+        """Hand the buffered rows on (to the writing process, or keep them here)."""
         if not self._rows:
             return
-        names = self._log_names or []
-        count = len(names)
-        name_set = set(names)
-        log_values = []
-        lines = []
-        for row, logs in zip(self._rows, self._logs):
-            if logs.keys() == name_set:  # every channel, and no new one: the usual row
-                values = tuple(logs[n] for n in names)
-                if self._handle is not None:
-                    lines.append(self._format_all % (row + values))
-            else:  # a channel missing this tick (empty cell) or new after the first block
-                self.dropped_channels.update(k for k in logs if k not in names)
-                values = tuple(logs.get(n, math.nan) for n in names)
-                if self._handle is not None:
-                    cells = "".join("," + _cell(logs.get(n)) for n in names)
-                    lines.append(self._format % row + cells)
-            log_values.append(values)
-        if self._handle is not None:
-            self._handle.write("\n".join(lines) + "\n")
-            self._handle.flush()
-        self._blocks.append(np.array(self._rows, dtype=float).reshape(-1, len(COLUMNS)))
-        self._log_blocks.append(np.array(log_values, dtype=float).reshape(len(log_values), count))
-        self._rows.clear()
-        self._logs.clear()
-
-    def _start(self, names: list[str]) -> None:
-        self._log_names = names
-        self._format = ",".join("%d" if c in _INT_COLUMNS else "%.9g" for c in COLUMNS)
-        self._format_all = self._format + ",%.9g" * len(names)
-        if self._handle is not None:
-            header = list(COLUMNS) + [LOG_PREFIX + n for n in names]
-            csv.writer(self._handle, lineterminator="\n").writerow(header)
+        rows, logs = self._rows, self._logs
+        self._rows, self._logs = [], []
+        if self._blocks is not None:
+            self._blocks.take(rows, logs)
+            return
+        if self._process is None:
+            raise OSError(f"{self.path}: the trace is already closed")
+        payload = pickle.dumps((rows, logs), protocol=pickle.HIGHEST_PROTOCOL)
+        try:
+            self._process.stdin.write(LENGTH.pack(len(payload)) + payload)
+            self._process.stdin.flush()
+        except BrokenPipeError:
+            self._finish()  # raises with the writing process's own message
 
     def close(self) -> None:
+        """Write what is left and wait for the trace file to be complete."""
+        if self._result is not None:
+            return
         self.flush()
-        if self._handle is not None and not self._handle.closed:
-            self._handle.close()
+        if self._blocks is not None:
+            self._result = self._blocks.result()
+        else:
+            self._finish()
+        self.dropped_channels = set(self._result["dropped"])
+
+    def _finish(self) -> None:
+        process, self._process = self._process, None
+        if process is None:
+            return
+        try:
+            process.stdin.close()
+        except BrokenPipeError:
+            pass
+        output = process.stdout.read()
+        problem = process.stderr.read().decode("utf-8", "replace").strip()
+        process.wait()
+        process.stdout.close()
+        process.stderr.close()
+        if process.returncode != 0 or not output:
+            raise OSError(f"{self.path}: writing the trace failed: "
+                          f"{problem or f'exit status {process.returncode}'}")
+        self._result = pickle.loads(output)
 
     def arrays(self) -> dict[str, np.ndarray]:
-        """The recorded columns (flushed rows) as numpy arrays, logs as ``log.<name>``."""
-        names = self._log_names or []
-        rows = (np.concatenate(self._blocks) if self._blocks
-                else np.zeros((0, len(COLUMNS))))
-        logs = (np.concatenate(self._log_blocks) if self._log_blocks
-                else np.zeros((0, len(names))))
+        """The recorded columns as numpy arrays, logs as ``log.<name>`` (after :meth:`close`)."""
+        if self._result is None:
+            self.close()
+        result = self._result
+        names = result["names"]
+        count = result["rows"]
+        rows = np.frombuffer(result["numbers"], dtype=float).reshape(count, len(COLUMNS))
+        logs = np.frombuffer(result["log_numbers"], dtype=float).reshape(count, len(names))
         out = {name: rows[:, i].copy() for i, name in enumerate(COLUMNS)}
         for i, name in enumerate(names):
             out[LOG_PREFIX + name] = logs[:, i].copy()
         return out
 
 
-def _cell(value: float | None) -> str:
-    return "" if value is None else "%.9g" % value
+def _start_writer(path: Path) -> subprocess.Popen:
+    """The trace-writing process for ``path`` (stdlib only, isolated, own session).
+
+    Its own session keeps a Ctrl-C at the terminal from reaching it: the
+    simulation catches the Ctrl-C and closes the trace properly.
+    """
+    options: dict = {"start_new_session": True} if os.name == "posix" else {
+        "creationflags": getattr(subprocess, "CREATE_NEW_PROCESS_GROUP", 0)}
+    process = subprocess.Popen(
+        [sys.executable, "-I", "-S", tracefile.__file__, str(path)],
+        stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, **options)
+    set_pipe_size = getattr(fcntl, "F_SETPIPE_SZ", None) if fcntl is not None else None
+    if set_pipe_size is not None:
+        try:  # room for several blocks, so the simulation never waits on a slow disk
+            fcntl.fcntl(process.stdin.fileno(), set_pipe_size, 1 << 20)
+        except OSError:
+            pass
+    return process
 
 
 def read_trace(path: Path) -> dict[str, np.ndarray]:

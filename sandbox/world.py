@@ -12,6 +12,7 @@ import os
 import tempfile
 from contextlib import contextmanager
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -176,12 +177,12 @@ Vector = tuple[float, float, float]
 Matrix = tuple[float, float, float, float, float, float, float, float, float]  # row-major
 
 
-@dataclass(frozen=True, slots=True)
-class BodyState:
+class BodyState(NamedTuple):
     """True state at one instant, world frame: positions m, velocities m/s, rates rad/s.
 
-    Plain tuples rather than numpy arrays: the loop reads this every controller
-    tick and tiny arrays cost more than the arithmetic.
+    Plain tuples rather than numpy arrays, and a named tuple rather than a
+    dataclass: the loop makes one every controller tick, and tiny arrays or a
+    frozen dataclass's constructor cost more than the arithmetic.
     """
 
     axle: Vector  # axle-centre position
@@ -295,6 +296,10 @@ class World:
         # the body's (velocity, angular velocity) read at the start of the last step
         # by the rotor coupling, or None: lets the IMU model skip a read
         self.velocity_before_step: tuple | None = None
+        # Engine reads of the present instant, kept until the next step or reset: the
+        # controller tick and the first physics step after it share them.
+        self._joints_now: tuple | None = None
+        self._velocity_now: tuple | None = None
         self._clear_tilt = self._tilt_before_touching()
         self._push: list | None = None  # [steps left, force (world), point (body frame)]
         self.payload_ids: list[int] = []
@@ -311,6 +316,7 @@ class World:
         rid = self.robot_id
         for _ in range(steps):
             pb.stepSimulation(physicsClientId=c)
+            self._forget_reads()
             state = self.body_state()
             normal = np.array(self._floor_normal)
             sink = float(np.dot(state.axle, normal))
@@ -324,6 +330,7 @@ class World:
             pb.resetBaseVelocity(rid, [0, 0, 0], [0, 0, 0], physicsClientId=c)
             for j in self.wheel_joints:
                 pb.resetJointState(rid, j, 0.0, 0.0, physicsClientId=c)
+        self._forget_reads()
 
     # ------------------------------------------------------------- set-up
     def _make_ground(self) -> int:
@@ -440,9 +447,16 @@ class World:
     # ------------------------------------------------------------- hot path
     def wheel_state(self) -> tuple[float, float, float, float]:
         """Wheel angles and rates relative to the body: (angle_l, angle_r, rate_l, rate_r)."""
-        left, right = pb.getJointStates(self.robot_id, self.wheel_joints,
-                                        physicsClientId=self.client)
+        joints = self._joints_now
+        if joints is None:
+            joints = self._joints_now = pb.getJointStates(self.robot_id, self.wheel_joints,
+                                                          physicsClientId=self.client)
+        left, right = joints
         return left[0], right[0], left[1], right[1]
+
+    def _forget_reads(self) -> None:
+        """The engine's state has changed: later reads must ask it again."""
+        self._joints_now = self._velocity_now = None
 
     def step(self, torque_left: float, torque_right: float,
              rate_left: float = 0.0, rate_right: float = 0.0) -> None:
@@ -458,6 +472,7 @@ class World:
                                      forces=(torque_left, torque_right),
                                      physicsClientId=self.client)
         pb.stepSimulation(physicsClientId=self.client)
+        self._forget_reads()
 
     def advance(self, steps: int, drive) -> None:
         """Run ``steps`` physics steps with the motors in the loop.
@@ -465,7 +480,9 @@ class World:
         Each step: read the wheel rates relative to the body, let ``drive`` (an
         :class:`sandbox.actuators.DriveTrain`) turn them into wheel torques,
         apply them, step. The hot loop of every run, so names are bound locally
-        and the rotor coupling is written out here rather than called.
+        and the rotor coupling is written out here rather than called. The
+        first step uses the reads of the present instant if the controller
+        tick already made them.
         """
         robot, joints, client, dt = self.robot_id, self.wheel_joints, self.client, self.dt
         read = pb.getJointStates
@@ -482,12 +499,22 @@ class World:
         if self._push is not None:
             self._advance_pushed(steps, drive)
             return
+        joints_now, velocity_now = self._joints_now, self._velocity_now
+        self._joints_now = self._velocity_now = None
         for _ in range(steps):
-            left, right = read(robot, joints, physicsClientId=client)
+            if joints_now is None:
+                left, right = read(robot, joints, physicsClientId=client)
+            else:
+                left, right = joints_now
+                joints_now = None
             rate_left, rate_right = left[1], right[1]
             torque_left, torque_right = motors(rate_left, rate_right, dt)
             if j > 0.0:  # see _rotor_coupling for the physics
-                velocity = read_body(robot, physicsClientId=client)
+                if velocity_now is None:
+                    velocity = read_body(robot, physicsClientId=client)
+                else:
+                    velocity = velocity_now
+                    velocity_now = None
                 w = velocity[1]
                 body_rate = w[0] * ax + w[1] * ay + w[2] * az
                 now = (body_rate, rate_left + body_rate, rate_right + body_rate)
@@ -530,7 +557,8 @@ class World:
         accelerations are the previous step's, from velocity differences.
         """
         j = self.reflected_inertia
-        w = pb.getBaseVelocity(self.robot_id, physicsClientId=self.client)[1]
+        w = self._velocity_now or pb.getBaseVelocity(self.robot_id, physicsClientId=self.client)
+        w = w[1]
         axis = self._axle_axis
         body_rate = w[0] * axis[0] + w[1] * axis[1] + w[2] * axis[2]
         last = self._last_rates
@@ -553,7 +581,11 @@ class World:
         """The body's true pose and velocity now (world frame)."""
         c = self.client
         com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
-        velocity, omega = pb.getBaseVelocity(self.robot_id, physicsClientId=c)
+        velocity_now = self._velocity_now
+        if velocity_now is None:
+            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
+                                                                   physicsClientId=c)
+        velocity, omega = velocity_now
         rotation = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
         if not self._identity_inertial:
             rotation = _matmul(rotation, self._body_from_inertial)
@@ -563,10 +595,12 @@ class World:
                 com[1] - (r[3] * lx + r[4] * ly + r[5] * lz),
                 com[2] - (r[6] * lx + r[7] * ly + r[8] * lz))
         self._axle_axis = (r[1], r[4], r[7])
-        return BodyState(axle=axle, rotation=rotation, com=com, velocity=velocity,
-                         angular_velocity=omega, com_orientation=quat,
-                         axle_velocity=_add(velocity, _cross(
-                             omega, (axle[0] - com[0], axle[1] - com[1], axle[2] - com[2]))))
+        # axle velocity = v + ω × (axle − com), written out
+        ox, oy, oz = omega
+        dx, dy, dz = axle[0] - com[0], axle[1] - com[1], axle[2] - com[2]
+        return BodyState(axle, rotation, com, velocity, omega, quat,
+                         (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
+                          velocity[2] + ox * dy - oy * dx))
 
     def forward_axis(self, state: BodyState) -> Vector:
         """Unit vector along the floor, perpendicular to the axle: the robot's heading."""
@@ -668,6 +702,7 @@ class World:
         for link in range(-1, pb.getNumJoints(self.robot_id, physicsClientId=c)):
             pb.setCollisionFilterPair(self.robot_id, payload, link, -1, 0, physicsClientId=c)
         self.payload_ids.append(payload)
+        self._forget_reads()
         return payload
 
     def payload_mass(self) -> float:
@@ -698,3 +733,4 @@ class World:
         c = self.client
         pb.resetBasePositionAndOrientation(self.robot_id, com, orientation, physicsClientId=c)
         pb.resetBaseVelocity(self.robot_id, velocity, angular_velocity, physicsClientId=c)
+        self._forget_reads()

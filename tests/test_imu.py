@@ -404,3 +404,57 @@ def test_encoder_missed_counts():
         encoders.miss("middle", 1)
     with pytest.raises(ValueError, match="counts"):
         encoders.miss("left", -1)
+
+
+def _model_draws(spec: robot.Imu, seed: int, count: int) -> tuple[np.ndarray, list]:
+    """Turn-on bias (6) and ``count`` scaled rows of 12 normals, drawn as the model draws them."""
+    rng = np.random.default_rng(seed)
+    gyro, accel = AxisNoise.from_section(spec.gyro), AxisNoise.from_section(spec.accel)
+    turn_on = rng.standard_normal(6)
+    bias = np.concatenate([turn_on[:3] * gyro.bias_std, turn_on[3:] * accel.bias_std])
+    scale = np.repeat([gyro.walk_std(spec.rate), gyro.white_std(spec.rate),
+                       accel.walk_std(spec.rate), accel.white_std(spec.rate)], 3)
+    rows, size = [], 16
+    while len(rows) < count:
+        rows.extend(rng.standard_normal((size, 12)) * scale)
+        size = min(2 * size, 1024)
+    return bias, rows
+
+
+def _sequential_readings(spec: robot.Imu, seed: int, elapsed: list[int],
+                         fault_at: int, fault: tuple[float, float, float]) -> np.ndarray:
+    """The bias walk summed read by read, as IEEE Std 952's model states it:
+    b_k = b_(k-1) + K·√(n_k / f)·w_k, output = true + b_k + white_k (no rounding)."""
+    bias, rows = _model_draws(spec, seed, len(elapsed))
+    out = []
+    for k, n in enumerate(elapsed):
+        row = rows[k]
+        if k == fault_at:
+            bias[:3] += fault
+        bias += math.sqrt(n) * row[[0, 1, 2, 6, 7, 8]]
+        out.append(bias + row[[3, 4, 5, 9, 10, 11]])
+    return np.array(out)
+
+
+def test_precomputed_walk_matches_read_by_read_sum():
+    """Reads with irregular sample counts, a bias fault and several blocks give the readings of
+    the walk summed read by read (IEEE Std 952 rate random walk), to float rounding."""
+    spec = imu_spec(gyro_density=0.01, gyro_bias=0.02, gyro_walk=0.05,
+                    accel_density=0.03, accel_bias=0.1, accel_walk=0.2)
+    rng = np.random.default_rng(3)
+    elapsed = [0] + [5] * 60 + list(rng.integers(1, 7, size=200)) + [5] * 300
+    fault = (0.01, -0.02, 0.03)
+    imu = Imu(spec, seed=11)
+    got = []
+    for k, n in enumerate(elapsed):
+        if k == 100:
+            imu.add_gyro_bias(fault)
+        gyro, accel = imu.read(STILL, STILL, int(n))
+        got.append(gyro + accel)
+    expected = _sequential_readings(spec, 11, elapsed, 100, fault)
+    lsb = 2000.0 / 2**32
+    np.testing.assert_allclose(got, expected, rtol=0, atol=2 * lsb + 1e-12,
+                               err_msg="readings against the read-by-read walk")
+    last_white = _model_draws(spec, 11, len(elapsed))[1][len(elapsed) - 1][[3, 4, 5, 9, 10, 11]]
+    np.testing.assert_allclose(imu.gyro_bias + imu.accel_bias, expected[-1] - last_white,
+                               atol=1e-12, err_msg="bias after the last read")

@@ -1,0 +1,144 @@
+"""Trace rows into CSV text and packed numbers; also the trace-writing process.
+
+Formatting a row of some thirty numbers as text costs more than everything
+else upright does in a controller tick, so when a run writes a folder the
+rows go, in pickled blocks, to a separate process running this file
+(``python tracefile.py PATH``) which formats, writes and flushes them while
+the simulation goes on, on another core. It also keeps the numbers and hands
+them back when its input ends. Standard library only: the process starts
+without numpy.
+
+Message format on the process's stdin: an 8-byte little-endian length, then
+a pickle of ``(rows, logs)``: row tuples in COLUMNS order and one dict of
+logged channels per row. At the end of input it writes one pickle to stdout:
+``{"names", "dropped", "rows", "numbers", "log_numbers"}``, numbers as the
+bytes of float64 arrays.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import pickle
+import struct
+import sys
+from array import array
+
+TRUE_COLUMNS = (
+    "t_s", "x_m", "pitch_rad", "pitch_rate_rad_s", "yaw_rad", "speed_m_s",
+    "duty_l", "duty_r", "current_l_a", "current_r_a", "battery_v",
+    "gyro_x_rad_s", "gyro_y_rad_s", "gyro_z_rad_s",
+    "accel_x_m_s2", "accel_y_m_s2", "accel_z_m_s2", "ticks_l", "ticks_r",
+)
+# The body's pose as the engine holds it (centre of mass + quaternion) and the
+# wheel angles relative to the body: enough to replay the run for a video.
+POSE_COLUMNS = (
+    "pose_x_m", "pose_y_m", "pose_z_m", "pose_qx", "pose_qy", "pose_qz", "pose_qw",
+    "wheel_l_rad", "wheel_r_rad",
+)
+COLUMNS = TRUE_COLUMNS + POSE_COLUMNS
+INT_COLUMNS = frozenset({"ticks_l", "ticks_r"})
+LOG_PREFIX = "log."
+LENGTH = struct.Struct("<Q")
+
+
+class TraceBlocks:
+    """Takes blocks of rows; writes them as CSV to ``handle`` (if any) and keeps the numbers.
+
+    Controller channels (``log.<name>``) are fixed by the names seen in the first
+    block; a name first logged later is counted in ``dropped``.
+    """
+
+    def __init__(self, handle=None):
+        self.handle = handle
+        self.names: list[str] | None = None
+        self.dropped: set[str] = set()
+        self.rows = 0
+        self.numbers = array("d")  # COLUMNS values, row after row
+        self.log_numbers = array("d")  # the log channels' values, row after row
+        self._format = ""
+        self._format_all = ""
+
+    def take(self, rows: list[tuple], logs: list[dict[str, float]]) -> None:
+        if self.names is None:
+            names: list[str] = []
+            for entry in logs:
+                names.extend(k for k in entry if k not in names)
+            self._start(names)
+        if not rows:
+            return
+        names = self.names
+        name_set = set(names)
+        numbers, log_numbers = self.numbers, self.log_numbers
+        lines = []
+        for row, entry in zip(rows, logs):
+            numbers.extend(row)
+            if entry.keys() == name_set:  # every channel, and no new one: the usual row
+                values = tuple(entry[n] for n in names)
+                if self.handle is not None:
+                    lines.append(self._format_all % (row + values))
+            else:  # a channel missing this tick (empty cell) or new after the first block
+                self.dropped.update(k for k in entry if k not in names)
+                values = tuple(entry.get(n, math.nan) for n in names)
+                if self.handle is not None:
+                    cells = "".join("," + _cell(entry.get(n)) for n in names)
+                    lines.append(self._format % row + cells)
+            log_numbers.extend(values)
+        self.rows += len(rows)
+        if self.handle is not None:
+            self.handle.write("\n".join(lines) + "\n")
+            self.handle.flush()
+
+    def _start(self, names: list[str]) -> None:
+        self.names = names
+        self._format = ",".join("%d" if c in INT_COLUMNS else "%.9g" for c in COLUMNS)
+        self._format_all = self._format + ",%.9g" * len(names)
+        if self.handle is not None:
+            header = list(COLUMNS) + [LOG_PREFIX + n for n in names]
+            csv.writer(self.handle, lineterminator="\n").writerow(header)
+            self.handle.flush()
+
+    def result(self) -> dict:
+        """Names, dropped channels, row count and the numbers as float64 bytes."""
+        return {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows,
+                "numbers": self.numbers.tobytes(), "log_numbers": self.log_numbers.tobytes()}
+
+
+def _cell(value: float | None) -> str:
+    return "" if value is None else "%.9g" % value
+
+
+def read_message(stream) -> tuple | None:
+    """One ``(rows, logs)`` block from ``stream``, or None at the end of input."""
+    head = stream.read(LENGTH.size)
+    if len(head) < LENGTH.size:
+        return None
+    (size,) = LENGTH.unpack(head)
+    body = stream.read(size)
+    if len(body) < size:
+        return None  # the simulation ended mid-message (killed): keep what came whole
+    return pickle.loads(body)
+
+
+def serve(path: str, source, sink) -> None:
+    """Write every block read from ``source`` to ``path``, then the result to ``sink``."""
+    with open(path, "a", newline="", encoding="utf-8") as handle:
+        blocks = TraceBlocks(handle)
+        while (message := read_message(source)) is not None:
+            blocks.take(*message)
+        if blocks.names is None:  # no row at all: still a header
+            blocks.take([], [])
+    pickle.dump(blocks.result(), sink, protocol=pickle.HIGHEST_PROTOCOL)
+    sink.flush()
+
+
+if __name__ == "__main__":
+    import signal
+
+    # Ctrl-C is for the simulation, which then closes our input: finish writing first.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        serve(sys.argv[1], sys.stdin.buffer, sys.stdout.buffer)
+    except OSError as err:
+        sys.stderr.write(f"{err}\n")
+        sys.exit(1)
