@@ -125,6 +125,7 @@ class DriveTrain:
         self.motor = MotorConstants.from_spec(spec.motors)
         driver, battery = spec.driver, spec.battery
         self._pwm_bits = driver.pwm_bits
+        self._pwm_levels = (1 << driver.pwm_bits) - 1
         self._deadband = driver.deadband
         self._brake_when_off = driver.off_state == "brake"
         self._voltage_drop = driver.voltage_drop
@@ -193,8 +194,19 @@ class DriveTrain:
 
     def set_duty(self, left: float, right: float) -> None:
         """Command both duties (each nominally in [-1, 1]); held until the next call."""
-        self._duty_left = quantise_duty(left, self._pwm_bits, self._deadband)
-        self._duty_right = quantise_duty(right, self._pwm_bits, self._deadband)
+        # Called every controller tick: duties already in range (the runner clips them)
+        # take a short path; anything else, NaN included, goes through quantise_duty.
+        levels, deadband = self._pwm_levels, self._deadband
+        if -1.0 <= left <= 1.0 and (left >= deadband or -left >= deadband):
+            steps = math.floor(abs(left) * levels + 0.5)
+            self._duty_left = math.copysign(steps / levels, left) if steps else 0.0
+        else:
+            self._duty_left = quantise_duty(left, self._pwm_bits, deadband)
+        if -1.0 <= right <= 1.0 and (right >= deadband or -right >= deadband):
+            steps = math.floor(abs(right) * levels + 0.5)
+            self._duty_right = math.copysign(steps / levels, right) if steps else 0.0
+        else:
+            self._duty_right = quantise_duty(right, self._pwm_bits, deadband)
 
     def step(self, rate_left: float, rate_right: float, dt: float) -> tuple[float, float]:
         """Wheel torques (N·m, + forward) for one physics step of dt seconds, given the wheel

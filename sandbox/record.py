@@ -17,6 +17,7 @@ import pickle
 import re
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 from typing import Any
@@ -62,7 +63,7 @@ class TraceWriter:
     name first logged later is counted in ``dropped_channels``.
     """
 
-    def __init__(self, path: Path | None, block_rows: int = 100):
+    def __init__(self, path: Path | None, block_rows: int = 50):
         self.path = path
         self.block_rows = block_rows
         self._rows: list[tuple] = []
@@ -71,13 +72,18 @@ class TraceWriter:
         self.dropped_channels: set[str] = set()
         self._blocks: TraceBlocks | None = None
         self._process: subprocess.Popen | None = None
+        self._numbers_path: Path | None = None
+        self._numbers: np.ndarray | None = None
         if path is None:
             self._blocks = TraceBlocks()
         else:
             # created (or emptied) here, so a folder that cannot be written fails at once
             with open(path, "w", encoding="utf-8"):
                 pass
-            self._process = _start_writer(path)
+            handle, numbers = tempfile.mkstemp(prefix="upright-trace-", suffix=".f64")
+            os.close(handle)
+            self._numbers_path = Path(numbers)
+            self._process = _start_writer(path, self._numbers_path)
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
         """One row: values in COLUMNS order, then the controller's logged channels."""
@@ -111,6 +117,7 @@ class TraceWriter:
         self.flush()
         if self._blocks is not None:
             self._result = self._blocks.result()
+            self._numbers = np.frombuffer(self._blocks.numbers, dtype=float)
         else:
             self._finish()
         self.dropped_channels = set(self._result["dropped"])
@@ -128,27 +135,26 @@ class TraceWriter:
         process.wait()
         process.stdout.close()
         process.stderr.close()
-        if process.returncode != 0 or not output:
-            raise OSError(f"{self.path}: writing the trace failed: "
-                          f"{problem or f'exit status {process.returncode}'}")
-        self._result = pickle.loads(output)
+        try:
+            if process.returncode != 0 or not output:
+                raise OSError(f"{self.path}: writing the trace failed: "
+                              f"{problem or f'exit status {process.returncode}'}")
+            self._result = pickle.loads(output)
+            self._numbers = np.fromfile(self._numbers_path, dtype=float)
+        finally:
+            self._numbers_path.unlink(missing_ok=True)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The recorded columns as numpy arrays, logs as ``log.<name>`` (after :meth:`close`)."""
         if self._result is None:
             self.close()
-        result = self._result
-        names = result["names"]
-        count = result["rows"]
-        rows = np.frombuffer(result["numbers"], dtype=float).reshape(count, len(COLUMNS))
-        logs = np.frombuffer(result["log_numbers"], dtype=float).reshape(count, len(names))
-        out = {name: rows[:, i].copy() for i, name in enumerate(COLUMNS)}
-        for i, name in enumerate(names):
-            out[LOG_PREFIX + name] = logs[:, i].copy()
-        return out
+        names = self._result["names"]
+        columns = list(COLUMNS) + [LOG_PREFIX + n for n in names]
+        table = self._numbers.reshape(self._result["rows"], len(columns))
+        return {name: table[:, i].copy() for i, name in enumerate(columns)}
 
 
-def _start_writer(path: Path) -> subprocess.Popen:
+def _start_writer(path: Path, numbers_path: Path) -> subprocess.Popen:
     """The trace-writing process for ``path`` (stdlib only, isolated, own session).
 
     Its own session keeps a Ctrl-C at the terminal from reaching it: the
@@ -157,7 +163,7 @@ def _start_writer(path: Path) -> subprocess.Popen:
     options: dict = {"start_new_session": True} if os.name == "posix" else {
         "creationflags": getattr(subprocess, "CREATE_NEW_PROCESS_GROUP", 0)}
     process = subprocess.Popen(
-        [sys.executable, "-I", "-S", tracefile.__file__, str(path)],
+        [sys.executable, "-I", "-S", tracefile.__file__, str(path), str(numbers_path)],
         stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, **options)
     set_pipe_size = getattr(fcntl, "F_SETPIPE_SZ", None) if fcntl is not None else None
     if set_pipe_size is not None:

@@ -149,7 +149,7 @@ class Simulation:
         try:
             # without a folder the trace is kept in memory only (sweeps need the figures)
             writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
-                                 block_rows=200 if folder is not None else 2000)
+                                 block_rows=50 if folder is not None else 2000)
         except OSError:
             world.close()
             raise
@@ -320,14 +320,13 @@ class Simulation:
         The acceleration is the mount point's velocity change over the last
         physics step, so an IMU high on the body feels the robot's own motion.
         """
+        gx, gy, gz = gravity
         if prev_mount_velocity is None:
-            acceleration = (0.0, 0.0, 0.0)
+            force = (-gx, -gy, -gz)
         else:
             v = state.point_velocity(mount)
             p = prev_mount_velocity
-            acceleration = ((v[0] - p[0]) / dt, (v[1] - p[1]) / dt, (v[2] - p[2]) / dt)
-        force = (acceleration[0] - gravity[0], acceleration[1] - gravity[1],
-                 acceleration[2] - gravity[2])
+            force = ((v[0] - p[0]) / dt - gx, (v[1] - p[1]) / dt - gy, (v[2] - p[2]) / dt - gz)
         return state.to_body(state.angular_velocity), state.to_body(force)
 
     def _summary(self, status, trace, ticks_run, fell_at, clipped, wall, writer) -> dict:

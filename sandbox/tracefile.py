@@ -3,22 +3,22 @@
 Formatting a row of some thirty numbers as text costs more than everything
 else upright does in a controller tick, so when a run writes a folder the
 rows go, in pickled blocks, to a separate process running this file
-(``python tracefile.py PATH``) which formats, writes and flushes them while
-the simulation goes on, on another core. It also keeps the numbers and hands
-them back when its input ends. Standard library only: the process starts
-without numpy.
+(``python tracefile.py CSV_PATH NUMBERS_PATH``) which formats, writes and
+flushes them while the simulation goes on, on another core. It also appends
+the values, as float64, to NUMBERS_PATH, for the simulation to read back.
+Standard library only: the process starts without numpy.
 
 Message format on the process's stdin: an 8-byte little-endian length, then
 a pickle of ``(rows, logs)``: row tuples in COLUMNS order and one dict of
-logged channels per row. At the end of input it writes one pickle to stdout:
-``{"names", "dropped", "rows", "numbers", "log_numbers"}``, numbers as the
-bytes of float64 arrays.
+logged channels per row. At the end of input it writes one pickle to stdout,
+``{"names", "dropped", "rows"}``, and exits.
 """
 
 from __future__ import annotations
 
 import csv
 import math
+import os
 import pickle
 import struct
 import sys
@@ -45,17 +45,19 @@ LENGTH = struct.Struct("<Q")
 class TraceBlocks:
     """Takes blocks of rows; writes them as CSV to ``handle`` (if any) and keeps the numbers.
 
-    Controller channels (``log.<name>``) are fixed by the names seen in the first
-    block; a name first logged later is counted in ``dropped``.
+    The numbers of each row (COLUMNS, then the log channels) go to ``numbers``
+    or, with ``numbers_handle``, are appended to that binary file block by block.
+    Controller channels (``log.<name>``) are fixed by the names seen in the
+    first block; a name first logged later is counted in ``dropped``.
     """
 
-    def __init__(self, handle=None):
+    def __init__(self, handle=None, numbers_handle=None):
         self.handle = handle
+        self.numbers_handle = numbers_handle
         self.names: list[str] | None = None
         self.dropped: set[str] = set()
         self.rows = 0
-        self.numbers = array("d")  # COLUMNS values, row after row
-        self.log_numbers = array("d")  # the log channels' values, row after row
+        self.numbers = array("d")  # float64, row after row
         self._format = ""
         self._format_all = ""
 
@@ -69,7 +71,7 @@ class TraceBlocks:
             return
         names = self.names
         name_set = set(names)
-        numbers, log_numbers = self.numbers, self.log_numbers
+        numbers = self.numbers
         lines = []
         for row, entry in zip(rows, logs):
             numbers.extend(row)
@@ -83,11 +85,15 @@ class TraceBlocks:
                 if self.handle is not None:
                     cells = "".join("," + _cell(entry.get(n)) for n in names)
                     lines.append(self._format % row + cells)
-            log_numbers.extend(values)
+            numbers.extend(values)
         self.rows += len(rows)
         if self.handle is not None:
             self.handle.write("\n".join(lines) + "\n")
             self.handle.flush()
+        if self.numbers_handle is not None:
+            numbers.tofile(self.numbers_handle)
+            self.numbers_handle.flush()
+            del numbers[:]
 
     def _start(self, names: list[str]) -> None:
         self.names = names
@@ -99,9 +105,8 @@ class TraceBlocks:
             self.handle.flush()
 
     def result(self) -> dict:
-        """Names, dropped channels, row count and the numbers as float64 bytes."""
-        return {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows,
-                "numbers": self.numbers.tobytes(), "log_numbers": self.log_numbers.tobytes()}
+        """Log channel names, dropped channels and the row count."""
+        return {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows}
 
 
 def _cell(value: float | None) -> str:
@@ -120,16 +125,21 @@ def read_message(stream) -> tuple | None:
     return pickle.loads(body)
 
 
-def serve(path: str, source, sink) -> None:
-    """Write every block read from ``source`` to ``path``, then the result to ``sink``."""
-    with open(path, "a", newline="", encoding="utf-8") as handle:
-        blocks = TraceBlocks(handle)
+def serve(path: str, numbers_path: str, source, sink) -> None:
+    """Write every block read from ``source`` to ``path`` (CSV) and ``numbers_path``
+    (float64), then the result to ``sink``."""
+    with open(path, "a", newline="", encoding="utf-8") as handle, \
+            open(numbers_path, "ab") as numbers:
+        blocks = TraceBlocks(handle, numbers)
         while (message := read_message(source)) is not None:
             blocks.take(*message)
         if blocks.names is None:  # no row at all: still a header
             blocks.take([], [])
-    pickle.dump(blocks.result(), sink, protocol=pickle.HIGHEST_PROTOCOL)
-    sink.flush()
+    try:
+        pickle.dump(blocks.result(), sink, protocol=pickle.HIGHEST_PROTOCOL)
+        sink.flush()
+    except BrokenPipeError:  # the simulation is gone (killed): nobody will read the numbers
+        os.remove(numbers_path)
 
 
 if __name__ == "__main__":
@@ -138,7 +148,11 @@ if __name__ == "__main__":
     # Ctrl-C is for the simulation, which then closes our input: finish writing first.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
-        serve(sys.argv[1], sys.stdin.buffer, sys.stdout.buffer)
+        serve(sys.argv[1], sys.argv[2], sys.stdin.buffer, sys.stdout.buffer)
     except OSError as err:
         sys.stderr.write(f"{err}\n")
-        sys.exit(1)
+        sys.stderr.flush()
+        os._exit(1)
+    # The file is closed and the result sent: skip the interpreter's tear-down, which
+    # the simulation would otherwise wait for.
+    os._exit(0)

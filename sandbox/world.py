@@ -226,11 +226,20 @@ class BodyState(NamedTuple):
 
     def point_velocity(self, local_point: Vector) -> Vector:
         """World velocity of a point fixed in the body, given in body coordinates (m)."""
-        px, py, pz = self.to_world(local_point)
-        ax, ay, az = self.axle
-        cx, cy, cz = self.com
-        return _add(self.velocity, _cross(self.angular_velocity,
-                                          (ax + px - cx, ay + py - cy, az + pz - cz)))
+        return _point_velocity(self, self.velocity, self.angular_velocity, local_point)
+
+
+def _point_velocity(state: BodyState, velocity: Vector, omega: Vector, point: Vector) -> Vector:
+    """v + ω × (p − com) for a point p fixed in the body (body coordinates, from the axle
+    centre) at the pose of ``state``; written out, as it runs every controller tick."""
+    r, (ax, ay, az), (cx, cy, cz) = state.rotation, state.axle, state.com
+    x, y, z = point
+    dx = ax + r[0] * x + r[1] * y + r[2] * z - cx
+    dy = ay + r[3] * x + r[4] * y + r[5] * z - cy
+    dz = az + r[6] * x + r[7] * y + r[8] * z - cz
+    ox, oy, oz = omega
+    return (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
+            velocity[2] + ox * dy - oy * dx)
 
 
 def _cross(a: Vector, b: Vector) -> Vector:
@@ -617,9 +626,14 @@ class World:
 
     def forward_speed(self, state: BodyState) -> float:
         """Axle-centre speed along the heading (m/s)."""
-        f = self.forward_axis(state)
+        # forward_axis written out (every controller tick)
+        r, (nx, ny, nz) = state.rotation, self._floor_normal
+        fx, fy, fz = r[4] * nz - r[7] * ny, r[7] * nx - r[1] * nz, r[1] * ny - r[4] * nx
+        norm = math.sqrt(fx * fx + fy * fy + fz * fz)
+        if norm < 1e-9:
+            fx, fy, fz, norm = r[0], r[3], r[6], 1.0
         v = state.axle_velocity
-        return v[0] * f[0] + v[1] * f[1] + v[2] * f[2]
+        return (v[0] * fx + v[1] * fy + v[2] * fz) / norm
 
     def previous_point_velocity(self, state: BodyState, local_point: Vector) -> Vector | None:
         """Velocity one physics step before ``state`` of a point fixed in the body, or None.
@@ -631,10 +645,7 @@ class World:
         if self.velocity_before_step is None:
             return None
         velocity, omega = self.velocity_before_step
-        px, py, pz = state.to_world(local_point)
-        ax, ay, az = state.axle
-        cx, cy, cz = state.com
-        return _add(velocity, _cross(omega, (ax + px - cx, ay + py - cy, az + pz - cz)))
+        return _point_velocity(state, velocity, omega, local_point)
 
     def _tilt_before_touching(self) -> float:
         """Smallest tilt (rad) at which a corner of a body box reaches flat floor."""

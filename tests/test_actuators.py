@@ -465,3 +465,21 @@ def test_bad_arguments_are_refused():
             drive.step(0.0, 0.0, dt)
     with pytest.raises(ValueError, match="rest_rate"):
         DriveTrain(make_spec(), rest_rate=0.0)
+
+
+@settings(max_examples=300, deadline=None)
+@given(left=st.floats(allow_nan=True, allow_infinity=False, width=64),
+       right=st.floats(min_value=-1.5, max_value=1.5),
+       bits=st.integers(min_value=1, max_value=16),
+       deadband=st.floats(min_value=0.0, max_value=0.5))
+def test_set_duty_applies_quantise_duty_exactly(left, right, bits, deadband):
+    """DriveTrain.set_duty (with its short path for in-range duties) holds exactly what
+    quantise_duty gives, sign of zero included, and refuses NaN alike."""
+    _, drive = rated_drive(pwm_bits=bits, deadband=deadband)
+    if math.isnan(left):
+        with pytest.raises(ValueError, match="finite"):
+            drive.set_duty(left, right)
+        return
+    drive.set_duty(left, right)
+    assert repr(drive.duty_left) == repr(quantise_duty(left, bits, deadband)), "left duty"
+    assert repr(drive.duty_right) == repr(quantise_duty(right, bits, deadband)), "right duty"

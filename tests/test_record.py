@@ -1,0 +1,109 @@
+"""The trace writer: the writing process, its file, and what a killed simulation leaves."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import tempfile
+import textwrap
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from sandbox import record
+from sandbox.record import COLUMNS, TraceWriter, read_trace
+
+
+def _rows(count: int, seed: int = 0) -> list[tuple]:
+    rng = np.random.default_rng(seed)
+    values = rng.normal(size=(count, len(COLUMNS))) * 10.0
+    ticks = rng.integers(-5000, 5000, size=(count, 2))
+    rows = []
+    for value, tick in zip(values.tolist(), ticks.tolist()):
+        value[17], value[18] = tick  # ticks_l, ticks_r are whole counts
+        rows.append(tuple(value))
+    return rows
+
+
+def _logs(count: int) -> list[dict[str, float]]:
+    return [{"tilt_est_rad": 0.001 * i, "drive": -0.5 + 0.01 * i} for i in range(count)]
+
+
+def test_file_and_memory_writers_keep_the_same_numbers(tmp_path):
+    """The writing process hands back exactly the numbers it was sent, as the in-process
+    writer keeps them; the CSV holds them to the 9 significant digits of its format."""
+    rows, logs = _rows(237), _logs(237)
+    on_disk, in_memory = TraceWriter(tmp_path / "trace.csv"), TraceWriter(None)
+    for row, entry in zip(rows, logs):
+        on_disk.add(row, dict(entry))
+        in_memory.add(row, dict(entry))
+    on_disk.close()
+    in_memory.close()
+    a, b = on_disk.arrays(), in_memory.arrays()
+    assert list(a) == list(b) == list(COLUMNS) + ["log.tilt_est_rad", "log.drive"]
+    for name in a:
+        np.testing.assert_array_equal(a[name], b[name], err_msg=name)
+    np.testing.assert_array_equal(a["t_s"], [r[0] for r in rows])
+    from_csv = read_trace(tmp_path / "trace.csv")
+    for name in a:
+        np.testing.assert_allclose(from_csv[name], a[name], rtol=1e-8, atol=0, err_msg=name)
+    assert not on_disk._numbers_path.exists(), "the numbers' scratch file is removed"
+
+
+def test_empty_trace_has_its_header(tmp_path):
+    """A run that ends before its first row still leaves a CSV with the column names."""
+    writer = TraceWriter(tmp_path / "trace.csv")
+    writer.close()
+    assert (tmp_path / "trace.csv").read_text().strip() == ",".join(COLUMNS)
+    assert all(len(v) == 0 for v in writer.arrays().values())
+
+
+def test_a_failing_writing_process_is_reported(tmp_path, monkeypatch):
+    """If the writing process cannot write, closing the trace raises OSError with its reason."""
+    start = record._start_writer
+
+    def into_a_folder(path, numbers_path):
+        return start(tmp_path, numbers_path)  # a folder cannot be opened as a file
+
+    monkeypatch.setattr(record, "_start_writer", into_a_folder)
+    writer = TraceWriter(tmp_path / "trace.csv", block_rows=5)
+    with pytest.raises(OSError, match="writing the trace failed"):
+        for row, entry in zip(_rows(50), _logs(50)):
+            writer.add(row, entry)
+        writer.close()
+
+
+@pytest.mark.skipif(os.name != "posix", reason="SIGKILL is POSIX")
+def test_killed_simulation_leaves_every_block_it_sent(tmp_path):
+    """A simulation killed outright (SIGKILL: no clean-up runs) leaves a CSV with every
+    whole block it handed over: the writing process finishes them on its own."""
+    script = textwrap.dedent(f"""
+        import os, signal, sys, time
+        sys.path.insert(0, {str(Path(__file__).resolve().parent.parent)!r})
+        from sandbox.record import COLUMNS, TraceWriter
+        writer = TraceWriter(__import__("pathlib").Path({str(tmp_path / "trace.csv")!r}),
+                             block_rows=10)
+        for i in range(35):
+            writer.add(tuple(float(i) for _ in COLUMNS), {{"k": float(i)}})
+        time.sleep(0.5)
+        os.kill(os.getpid(), signal.SIGKILL)
+    """)
+    started = time.time() - 1.0
+    done = subprocess.run([sys.executable, "-c", script], timeout=60)
+    assert done.returncode == -signal.SIGKILL
+    lines = []
+    for _ in range(100):  # the writing process may still be finishing
+        lines = (tmp_path / "trace.csv").read_text().splitlines()
+        if len(lines) == 31:
+            break
+        time.sleep(0.05)
+    assert len(lines) == 1 + 30, "header and the three blocks of ten rows sent"
+    assert lines[0].split(",")[-1] == "log.k"
+    assert lines[-1].split(",")[0] == "29"
+    numbers = [p for p in Path(tempfile.gettempdir()).glob("upright-trace-*.f64")
+               if p.stat().st_mtime >= started]
+    assert not numbers, "the writing process removes its scratch file when nobody reads it"
