@@ -14,13 +14,18 @@ solver, 1 ms step) for the same simulated time, in this process:
 (b) upright: the real runner with a 200 Hz example controller, IMU, motors,
     battery, and the trace written to a folder.
 
-Prints both costs per physics step, the ratio (b)/(a) (target: at most 1.3)
-and upright's real-time factor. Usage: python bench/loop_speed.py [SECONDS [ROUNDS]]
+Prints both costs per physics step, the ratio (b)/(a) (target: at most 1.3),
+upright's real-time factor, and the CPU time of the trace-writing process,
+which formats the CSV on another core (see DEVELOPERS.md). The headline is
+the median over rounds of the per-round ratio: on a shared machine whose
+speed swings, that is steadier than a ratio of two minimums.
+Usage: python bench/loop_speed.py [SECONDS [ROUNDS]]  (default 2 s, 21 rounds)
 """
 
 from __future__ import annotations
 
 import math
+import resource
 import sys
 import tempfile
 import time
@@ -108,28 +113,37 @@ def upright_loop(spec, seconds: float, folder: Path) -> tuple[float, float]:
 
 
 def main() -> None:
-    seconds = float(sys.argv[1]) if len(sys.argv) > 1 else 5.0
-    rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 7
+    seconds = float(sys.argv[1]) if len(sys.argv) > 1 else 2.0
+    rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 21
     spec = load_robot(ROBOT)
     bare, full, rtf = [], [], []
+    writer_cpu = 0.0
     with tempfile.TemporaryDirectory() as tmp:
         actuation = record_actuation(spec, seconds, Path(tmp) / "recorded")
         # Back to back in each round, so a machine that speeds up or slows down
-        # (shared cores, frequency scaling) moves both figures alike.
+        # (shared cores, frequency scaling) moves both figures alike; many short
+        # rounds rather than a few long ones, for the same reason.
         for i in range(rounds):
             bare.append(bare_loop(spec, actuation))
+            children = resource.getrusage(resource.RUSAGE_CHILDREN)
             cost, factor = upright_loop(spec, seconds, Path(tmp) / f"run{i}")
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            writer_cpu += (after.ru_utime + after.ru_stime) - (children.ru_utime + children.ru_stime)
             full.append(cost)
             rtf.append(factor)
     ratios = sorted(f / b for f, b in zip(full, bare))
     median = ratios[len(ratios) // 2]
+    quarter, three_quarters = ratios[len(ratios) // 4], ratios[(3 * len(ratios)) // 4]
     b, f = min(bare), min(full)
+    steps = len(actuation) * rounds
     print(f"{rounds} rounds of {seconds:g} s simulated, 1 ms physics step, 200 Hz controller")
     print(f"bare pybullet sense-and-actuate, best: {b * 1e6:.1f} us per step ({1 / b:,.0f}/s)")
     print(f"upright full run, best:                {f * 1e6:.1f} us per step ({1 / f:,.0f}/s)")
-    print(f"ratio upright / bare: median of rounds {median:.2f}, of the bests {f / b:.2f}"
-          "  (target <= 1.3)")
+    print(f"ratio upright / bare: median of rounds {median:.2f} (middle half {quarter:.2f}-"
+          f"{three_quarters:.2f}), of the bests {f / b:.2f}  (target <= 1.3)")
     print(f"upright real-time factor: {max(rtf):.1f}x")
+    print(f"trace-writing process: {writer_cpu / steps * 1e6:.1f} us of CPU per step, "
+          "on another core")
 
 
 if __name__ == "__main__":

@@ -232,16 +232,35 @@ class DriveTrain:
             current_right = 0.0
         else:
             current_right = (duty_right * supply - ke * rate_right) / resistance
-        torque_left = self._with_friction(motor.torque_constant * current_left, rate_left)
-        torque_right = self._with_friction(motor.torque_constant * current_right, rate_right)
+        # Coulomb friction: a wheel moving either way (the usual case) written out here,
+        # one at rest through _with_friction
+        kt, friction, rest_rate = motor.torque_constant, motor.friction_torque, self._rest_rate
+        if rate_left > rest_rate:
+            torque_left = kt * current_left - friction
+        elif rate_left < -rest_rate:
+            torque_left = kt * current_left + friction
+        else:
+            torque_left = self._with_friction(kt * current_left, rate_left)
+        if rate_right > rest_rate:
+            torque_right = kt * current_right - friction
+        elif rate_right < -rest_rate:
+            torque_right = kt * current_right + friction
+        else:
+            torque_right = self._with_friction(kt * current_right, rate_right)
         self._current_left, self._current_right = current_left, current_right
         # Averaged sign-magnitude PWM: the supply carries the motor current for the duty
         # fraction of each period; a shorted (braking) motor draws nothing from it.
         battery_current = duty_left * current_left + duty_right * current_right
         self._battery_current = battery_current
         charge = self._charge - battery_current * dt / self._capacity
-        self._charge = 0.0 if charge < 0.0 else 1.0 if charge > 1.0 else charge
-        self._terminal_voltage = self._terminal(self._charge, battery_current)
+        charge = 0.0 if charge < 0.0 else 1.0 if charge > 1.0 else charge
+        self._charge = charge
+        # _terminal written out for the usual step, when the charge has barely moved
+        if abs(charge - self._ocv_charge) <= 1e-6:
+            terminal = self._ocv - self._internal_resistance * battery_current
+            self._terminal_voltage = terminal if terminal > 0.0 else 0.0
+        else:
+            self._terminal_voltage = self._terminal(charge, battery_current)
         return torque_left, torque_right
 
     # ----------------------------------------------------------------- internals

@@ -9,15 +9,17 @@ simulation killed outright leaves every block it sent.
 
 from __future__ import annotations
 
+import atexit
 import csv
+import itertools
 import json
 import math
 import os
-import pickle
 import re
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 from typing import Any
@@ -26,7 +28,15 @@ import numpy as np
 import yaml
 
 from . import tracefile
-from .tracefile import COLUMNS, LENGTH, LOG_PREFIX, POSE_COLUMNS, TRUE_COLUMNS, TraceBlocks
+from .tracefile import (
+    COLUMNS,
+    LOG_PREFIX,
+    POSE_COLUMNS,
+    TRUE_COLUMNS,
+    TraceBlocks,
+    pack_message,
+    read_message,
+)
 
 try:
     import fcntl
@@ -56,8 +66,8 @@ def _slug(text: str) -> str:
 class TraceWriter:
     """Streams trace rows to ``trace.csv``; keeps the numeric columns for metrics.
 
-    With a path, blocks of rows go to a trace-writing process
-    (:mod:`sandbox.tracefile`) that formats and writes them on another core;
+    With a path, blocks of rows go to the trace-writing process
+    (:mod:`sandbox.tracefile`), which formats and writes them on another core;
     without one, the rows are only kept, in this process. Controller channels
     (``log.<name>``) are fixed by the names seen in the first block of rows; a
     name first logged later is counted in ``dropped_channels``.
@@ -71,19 +81,21 @@ class TraceWriter:
         self._result: dict | None = None
         self.dropped_channels: set[str] = set()
         self._blocks: TraceBlocks | None = None
-        self._process: subprocess.Popen | None = None
+        self._writing: _WritingProcess | None = None
         self._numbers_path: Path | None = None
         self._numbers: np.ndarray | None = None
         if path is None:
             self._blocks = TraceBlocks()
-        else:
-            # created (or emptied) here, so a folder that cannot be written fails at once
-            with open(path, "w", encoding="utf-8"):
-                pass
-            handle, numbers = tempfile.mkstemp(prefix="upright-trace-", suffix=".f64")
-            os.close(handle)
-            self._numbers_path = Path(numbers)
-            self._process = _start_writer(path, self._numbers_path)
+            return
+        # created (or emptied) here, so a folder that cannot be written fails at once
+        with open(path, "w", encoding="utf-8"):
+            pass
+        handle, numbers = tempfile.mkstemp(prefix="upright-trace-", suffix=".f64")
+        os.close(handle)
+        self._numbers_path = Path(numbers)
+        self._id = next(_trace_ids)
+        self._writing = writing_process()
+        self._send(("open", self._id, _open_payload(path, self._numbers_path)))
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
         """One row: values in COLUMNS order, then the controller's logged channels."""
@@ -100,15 +112,10 @@ class TraceWriter:
         self._rows, self._logs = [], []
         if self._blocks is not None:
             self._blocks.take(rows, logs)
-            return
-        if self._process is None:
+        elif self._result is not None:
             raise OSError(f"{self.path}: the trace is already closed")
-        payload = pickle.dumps((rows, logs), protocol=pickle.HIGHEST_PROTOCOL)
-        try:
-            self._process.stdin.write(LENGTH.pack(len(payload)) + payload)
-            self._process.stdin.flush()
-        except BrokenPipeError:
-            self._finish()  # raises with the writing process's own message
+        else:
+            self._send(("rows", self._id, (rows, logs)))
 
     def close(self) -> None:
         """Write what is left and wait for the trace file to be complete."""
@@ -119,30 +126,18 @@ class TraceWriter:
             self._result = self._blocks.result()
             self._numbers = np.frombuffer(self._blocks.numbers, dtype=float)
         else:
-            self._finish()
+            try:
+                reply = self._writing.ask(pack_message(("close", self._id, None)))
+                if "error" in reply:
+                    raise OSError(f"{self.path}: writing the trace failed: {reply['error']}")
+                self._numbers = np.fromfile(self._numbers_path, dtype=float)
+                self._result = reply
+            finally:
+                self._numbers_path.unlink(missing_ok=True)
         self.dropped_channels = set(self._result["dropped"])
 
-    def _finish(self) -> None:
-        process, self._process = self._process, None
-        if process is None:
-            return
-        try:
-            process.stdin.close()
-        except BrokenPipeError:
-            pass
-        output = process.stdout.read()
-        problem = process.stderr.read().decode("utf-8", "replace").strip()
-        process.wait()
-        process.stdout.close()
-        process.stderr.close()
-        try:
-            if process.returncode != 0 or not output:
-                raise OSError(f"{self.path}: writing the trace failed: "
-                              f"{problem or f'exit status {process.returncode}'}")
-            self._result = pickle.loads(output)
-            self._numbers = np.fromfile(self._numbers_path, dtype=float)
-        finally:
-            self._numbers_path.unlink(missing_ok=True)
+    def _send(self, message: tuple) -> None:
+        self._writing.send(pack_message(message), self.path)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The recorded columns as numpy arrays, logs as ``log.<name>`` (after :meth:`close`)."""
@@ -154,24 +149,101 @@ class TraceWriter:
         return {name: table[:, i].copy() for i, name in enumerate(columns)}
 
 
-def _start_writer(path: Path, numbers_path: Path) -> subprocess.Popen:
-    """The trace-writing process for ``path`` (stdlib only, isolated, own session).
+def _open_payload(path: Path, numbers_path: Path) -> tuple[str, str]:
+    """What the writing process needs to start a trace (tests replace this)."""
+    return str(path), str(numbers_path)
+
+
+_trace_ids = itertools.count()
+
+
+class _WritingProcess:
+    """The trace-writing process of this Python process (stdlib only, isolated, own session).
 
     Its own session keeps a Ctrl-C at the terminal from reaching it: the
-    simulation catches the Ctrl-C and closes the trace properly.
+    simulation catches the Ctrl-C and closes its trace properly. A lock keeps
+    messages whole when runs write traces from several threads.
     """
-    options: dict = {"start_new_session": True} if os.name == "posix" else {
-        "creationflags": getattr(subprocess, "CREATE_NEW_PROCESS_GROUP", 0)}
-    process = subprocess.Popen(
-        [sys.executable, "-I", "-S", tracefile.__file__, str(path), str(numbers_path)],
-        stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, **options)
-    set_pipe_size = getattr(fcntl, "F_SETPIPE_SZ", None) if fcntl is not None else None
-    if set_pipe_size is not None:
-        try:  # room for several blocks, so the simulation never waits on a slow disk
-            fcntl.fcntl(process.stdin.fileno(), set_pipe_size, 1 << 20)
+
+    def __init__(self):
+        options: dict = {"start_new_session": True} if os.name == "posix" else {
+            "creationflags": getattr(subprocess, "CREATE_NEW_PROCESS_GROUP", 0)}
+        self.process = subprocess.Popen(
+            [sys.executable, "-I", "-S", tracefile.__file__],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, **options)
+        self.owner = os.getpid()
+        self.lock = threading.Lock()
+        self.broken = False
+        set_pipe_size = getattr(fcntl, "F_SETPIPE_SZ", None) if fcntl is not None else None
+        if set_pipe_size is not None:
+            try:  # room for several blocks, so the simulation never waits on a slow disk
+                fcntl.fcntl(self.process.stdin.fileno(), set_pipe_size, 1 << 20)
+            except OSError:
+                pass
+
+    def usable(self) -> bool:
+        return not self.broken and self.owner == os.getpid() and self.process.poll() is None
+
+    def send(self, data: bytes, path: Path | None = None) -> None:
+        with self.lock:
+            self._write(data, path)
+
+    def ask(self, data: bytes) -> dict:
+        """Send a message and wait for its reply."""
+        with self.lock:
+            self._write(data)
+            try:
+                reply = read_message(self.process.stdout)
+            except BaseException:
+                self.broken = True  # a reply half read (Ctrl-C): the stream is out of step
+                raise
+            if reply is None:
+                self.broken = True
+                raise OSError("the trace-writing process stopped")
+            return reply
+
+    def _write(self, data: bytes, path: Path | None = None) -> None:
+        if self.broken:
+            raise OSError(f"{path or 'trace'}: the trace-writing process is gone")
+        try:
+            self.process.stdin.write(data)
+            self.process.stdin.flush()
+        except OSError as err:
+            self.broken = True
+            raise OSError(f"{path or 'trace'}: the trace-writing process stopped ({err})") from None
+        except BaseException:
+            self.broken = True  # a message half written (Ctrl-C): the stream is out of step
+            raise
+
+    def stop(self) -> None:
+        """End the input (the process completes what it has, then exits) and wait briefly."""
+        if self.owner != os.getpid():
+            return
+        try:
+            self.process.stdin.close()
         except OSError:
             pass
-    return process
+        try:
+            self.process.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            self.process.kill()
+        self.process.stdout.close()
+
+
+_writing: _WritingProcess | None = None
+_writing_lock = threading.Lock()
+
+
+def writing_process() -> _WritingProcess:
+    """The trace-writing process, started on first use (again after a fork, or if it died)."""
+    global _writing
+    with _writing_lock:
+        if _writing is None or not _writing.usable():
+            old, _writing = _writing, _WritingProcess()
+            if old is not None and old.owner == os.getpid():
+                old.stop()
+            atexit.register(_writing.stop)
+        return _writing
 
 
 def read_trace(path: Path) -> dict[str, np.ndarray]:

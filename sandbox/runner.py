@@ -16,6 +16,7 @@ import traceback
 from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
+from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -177,20 +178,23 @@ class Simulation:
             x = 0.0
             last_speed = 0.0
             last_sample_index = -1
-            state = world.body_state()
-            # true (rate, specific force) of IMU samples taken but not yet seen, by step;
-            # the first sample has no earlier velocity, so no acceleration
-            truths = {0: self._imu_truth(state, mount, gravity, None, dt)}
-            sample_truth = truths[0]
-            period, latency_steps, imu_truth = self.period, self.latency_steps, self._imu_truth
+            # true (rate, specific force) of IMU samples taken but not yet seen, by step
+            truths: dict[int, tuple] = {}
+            period, latency_steps = self.period, self.latency_steps
             step_controller = controller.step
+            sense = getattr(world, "tick_sense", None) or partial(_tick_sense, world, gravity, dt)
             for tick in range(n_ticks + 1):
                 t = tick * period
                 if timeline is not None:
                     timeline.fire(t, x, world, drive, imu, encoders)
+                (pitch, pitch_rate, yaw, speed, pose, q, angle_l, angle_r, true_rate,
+                 true_force) = sense(mount)
                 # -- the IMU sample the controller sees now
-                sample_at = step if sampled_now else sample_step(step, dt, imu_rate,
-                                                                  sensor_latency_steps)
+                if sampled_now or not tick:
+                    # taken now (the first sample has no earlier velocity: no acceleration)
+                    sample_at, sample_truth = step, (true_rate, true_force)
+                else:
+                    sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
                 if sample_at in truths:
                     sample_truth = truths[sample_at]
                     if len(truths) > 1:
@@ -199,12 +203,9 @@ class Simulation:
                 elapsed = max(sample_index - last_sample_index, 0)
                 last_sample_index = sample_index
                 gyro, accel = imu.read(sample_truth[0], sample_truth[1], elapsed)
-                angle_l, angle_r, rate_l, rate_r = world.wheel_state()
                 ticks_lr = encoders.ticks(angle_l, angle_r)
-                speed = world.forward_speed(state)
                 x += 0.5 * (speed + last_speed) * period if tick else 0.0
                 last_speed = speed
-                pitch = state.pitch
                 # -- the controller
                 reading.t = t
                 reading.gyro = gyro
@@ -224,10 +225,8 @@ class Simulation:
                 clipped += was_clipped
                 pending.append((step + latency_steps, left, right))
                 # -- the trace row
-                pose = state.com
-                q = state.com_orientation
                 writer.add((
-                    t, x, pitch, state.pitch_rate, state.yaw, speed, left, right,
+                    t, x, pitch, pitch_rate, yaw, speed, left, right,
                     drive.current_left, drive.current_right, drive.battery_voltage,
                     gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2],
                     ticks_lr[0], ticks_lr[1],
@@ -248,7 +247,8 @@ class Simulation:
                 sampled_now = fast_sampling and next_sample == target
                 if sampled_now:
                     # The usual case: the sample is taken at the tick itself and the coupled
-                    # world remembers the body's velocity before its last step.
+                    # world remembers the body's velocity before its last step, so the
+                    # tick's sensing gives the sample's truth.
                     while step < target:
                         while pending and pending[0][0] <= step:
                             _, left, right = pending.popleft()
@@ -256,15 +256,14 @@ class Simulation:
                         stop = pending[0][0] if pending and pending[0][0] < target else target
                         world.advance(stop - step, drive)
                         step = stop
-                    state = world.body_state()
-                    sample_truth = imu_truth(state, mount, gravity,
-                                             world.previous_point_velocity(state, mount), dt)
                     continue
                 # With sensor latency the newest sample of this period may be seen only
                 # a tick later (when none falls between the tick and tick + latency).
                 newest = (sample_step(target, dt, imu_rate, 0.0) if sensor_latency_steps
                           else next_sample)
                 due = [n for n in {next_sample, newest} if n > step]
+                if any(n - 1 == step for n in due):
+                    state = world.body_state()
                 before = {n: state.point_velocity(mount) for n in due if n - 1 == step}
                 # stop one step before a sample (its velocity) and at it; at the tick the
                 # coupled world remembers the velocity before its last step
@@ -290,8 +289,8 @@ class Simulation:
                         if step in due:
                             truths[step] = self._imu_truth(here, mount, gravity,
                                                            before.get(step), dt)
-                state = world.body_state()
                 if target in due:
+                    state = world.body_state()
                     prev = (world.previous_point_velocity(state, mount)
                             if coupled and target not in before else before.get(target))
                     truths[target] = self._imu_truth(state, mount, gravity, prev, dt)
@@ -346,6 +345,16 @@ class Simulation:
             "test": s.test_name,
             "dropped_log_channels": sorted(getattr(writer, "dropped_channels", ())),
         }
+
+
+def _tick_sense(world: Any, gravity, dt: float, mount) -> tuple:
+    """``World.tick_sense`` from a world's separate accessors (for worlds without it)."""
+    state = world.body_state()
+    angle_l, angle_r, _, _ = world.wheel_state()
+    true_rate, true_force = Simulation._imu_truth(
+        state, mount, gravity, world.previous_point_velocity(state, mount), dt)
+    return (state.pitch, state.pitch_rate, state.yaw, world.forward_speed(state), state.com,
+            state.com_orientation, angle_l, angle_r, true_rate, true_force)
 
 
 def _failure(err: Exception, name: str, t: float, cls: type) -> ControllerError:

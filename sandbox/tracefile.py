@@ -3,15 +3,23 @@
 Formatting a row of some thirty numbers as text costs more than everything
 else upright does in a controller tick, so when a run writes a folder the
 rows go, in pickled blocks, to a separate process running this file
-(``python tracefile.py CSV_PATH NUMBERS_PATH``) which formats, writes and
-flushes them while the simulation goes on, on another core. It also appends
-the values, as float64, to NUMBERS_PATH, for the simulation to read back.
-Standard library only: the process starts without numpy.
+(``python tracefile.py``) which formats, writes and flushes them while the
+simulation goes on, on another core. It also appends each row's values, as
+float64, to a scratch file for the simulation to read back. One such process
+serves every trace of the Python process that started it, one after another
+or several at once. Standard library only: it starts without numpy.
 
-Message format on the process's stdin: an 8-byte little-endian length, then
-a pickle of ``(rows, logs)``: row tuples in COLUMNS order and one dict of
-logged channels per row. At the end of input it writes one pickle to stdout,
-``{"names", "dropped", "rows"}``, and exits.
+Messages on its stdin, and replies on its stdout: an 8-byte little-endian
+length, then a pickle of ``(kind, trace, payload)``:
+
+- ``("open", id, (csv_path, numbers_path))``: start a trace;
+- ``("rows", id, (rows, logs))``: row tuples in COLUMNS order and one dict of
+  logged channels per row;
+- ``("close", id, None)``: finish the trace; the reply is
+  ``{"names", "dropped", "rows"}``, or ``{"error": text}``.
+
+At the end of its input (the simulation has ended, or was killed) it
+completes every open trace's CSV, removes their scratch files and exits.
 """
 
 from __future__ import annotations
@@ -113,8 +121,8 @@ def _cell(value: float | None) -> str:
     return "" if value is None else "%.9g" % value
 
 
-def read_message(stream) -> tuple | None:
-    """One ``(rows, logs)`` block from ``stream``, or None at the end of input."""
+def read_message(stream) -> tuple | dict | None:
+    """One message from ``stream``, or None at the end of input."""
     head = stream.read(LENGTH.size)
     if len(head) < LENGTH.size:
         return None
@@ -125,34 +133,86 @@ def read_message(stream) -> tuple | None:
     return pickle.loads(body)
 
 
-def serve(path: str, numbers_path: str, source, sink) -> None:
-    """Write every block read from ``source`` to ``path`` (CSV) and ``numbers_path``
-    (float64), then the result to ``sink``."""
-    with open(path, "a", newline="", encoding="utf-8") as handle, \
-            open(numbers_path, "ab") as numbers:
-        blocks = TraceBlocks(handle, numbers)
-        while (message := read_message(source)) is not None:
-            blocks.take(*message)
-        if blocks.names is None:  # no row at all: still a header
-            blocks.take([], [])
-    try:
-        pickle.dump(blocks.result(), sink, protocol=pickle.HIGHEST_PROTOCOL)
-        sink.flush()
-    except BrokenPipeError:  # the simulation is gone (killed): nobody will read the numbers
-        os.remove(numbers_path)
+def pack_message(message: tuple | dict) -> bytes:
+    """``message`` pickled, with its length in front."""
+    body = pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL)
+    return LENGTH.pack(len(body)) + body
+
+
+class _Trace:
+    """One open trace in the writing process: its files, or why it cannot be written."""
+
+    def __init__(self, csv_path: str, numbers_path: str):
+        self.numbers_path = numbers_path
+        self.error = ""
+        self.handle = self.numbers = None
+        try:
+            self.handle = open(csv_path, "a", newline="", encoding="utf-8")  # noqa: SIM115
+            self.numbers = open(numbers_path, "ab")  # noqa: SIM115
+        except OSError as err:
+            self.fail(err)
+        self.blocks = TraceBlocks(self.handle, self.numbers)
+
+    def take(self, rows: list[tuple], logs: list[dict]) -> None:
+        if not self.error:
+            try:
+                self.blocks.take(rows, logs)
+            except OSError as err:
+                self.fail(err)
+
+    def fail(self, err: OSError) -> None:
+        self.error = self.error or str(err)
+        self.close_files()
+
+    def close_files(self) -> None:
+        for handle in (self.handle, self.numbers):
+            if handle is not None and not handle.closed:
+                try:
+                    handle.close()
+                except OSError as err:
+                    self.error = self.error or str(err)
+
+    def finish(self) -> dict:
+        """Header if no row came, files closed; the reply to ``close``."""
+        if not self.error and self.blocks.names is None:
+            self.take([], [])
+        self.close_files()
+        return {"error": self.error} if self.error else self.blocks.result()
+
+
+def serve(source, sink) -> None:
+    """Answer messages from ``source`` (replies to ``sink``) until the input ends."""
+    traces: dict[int, _Trace] = {}
+    while (message := read_message(source)) is not None:
+        kind, trace, payload = message
+        if kind == "open":
+            traces[trace] = _Trace(*payload)
+        elif kind == "rows":
+            if trace in traces:
+                traces[trace].take(*payload)
+        elif kind == "close":
+            done = traces.pop(trace, None)
+            reply = done.finish() if done else {"error": f"no open trace number {trace}"}
+            sink.write(pack_message(reply))
+            sink.flush()
+    # The simulation has gone without closing these: complete their CSV files; nobody
+    # will read the numbers.
+    for left in traces.values():
+        left.finish()
+        try:
+            os.remove(left.numbers_path)
+        except OSError:
+            pass
 
 
 if __name__ == "__main__":
     import signal
 
-    # Ctrl-C is for the simulation, which then closes our input: finish writing first.
+    # Ctrl-C is for the simulation, which then closes its traces: finish writing first.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
-        serve(sys.argv[1], sys.argv[2], sys.stdin.buffer, sys.stdout.buffer)
-    except OSError as err:
-        sys.stderr.write(f"{err}\n")
-        sys.stderr.flush()
-        os._exit(1)
-    # The file is closed and the result sent: skip the interpreter's tear-down, which
-    # the simulation would otherwise wait for.
+        serve(sys.stdin.buffer, sys.stdout.buffer)
+    except BrokenPipeError:  # the simulation is gone while we answered it
+        pass
+    # Skip the interpreter's tear-down: every file is closed.
     os._exit(0)

@@ -611,6 +611,81 @@ class World:
                          (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
                           velocity[2] + ox * dy - oy * dx))
 
+    def tick_sense(self, mount: Vector) -> tuple:
+        """What a controller tick records of the true state now, in one pass.
+
+        Returns ``(pitch, pitch_rate, yaw, forward_speed, com, com_orientation,
+        wheel_angle_left, wheel_angle_right, body_rate, specific_force)``: the
+        same values as :meth:`body_state` with its properties, :meth:`forward_speed`
+        and :meth:`wheel_state` give; ``body_rate`` is the angular velocity in body
+        axes (rad/s) and ``specific_force`` (m/s², body axes) the acceleration less
+        gravity of the body point ``mount`` (body frame, m), its acceleration being
+        its velocity change over the last physics step (zero when the world did not
+        keep the velocity before that step). Written out as one function because it
+        runs every tick, where a chain of small calls costs more than the arithmetic.
+        """
+        c = self.client
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
+        velocity_now = self._velocity_now
+        if velocity_now is None:
+            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
+                                                                   physicsClientId=c)
+        (vx, vy, vz), (ox, oy, oz) = velocity_now
+        r = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
+        if not self._identity_inertial:
+            r = _matmul(r, self._body_from_inertial)
+        r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
+        self._axle_axis = (r1, r4, r7)
+        # (the same operations, in the same order, as body_state, forward_speed and the
+        # runner's IMU truth: the numbers are identical to the last bit)
+        lx, ly, lz = self._com_local_tuple
+        cx, cy, cz = com
+        axle_x = cx - (r0 * lx + r1 * ly + r2 * lz)
+        axle_y = cy - (r3 * lx + r4 * ly + r5 * lz)
+        axle_z = cz - (r6 * lx + r7 * ly + r8 * lz)
+        dx, dy, dz = axle_x - cx, axle_y - cy, axle_z - cz
+        # forward speed: the axle centre's velocity along (axle axis × floor normal)
+        nx, ny, nz = self._floor_normal
+        fx, fy, fz = r4 * nz - r7 * ny, r7 * nx - r1 * nz, r1 * ny - r4 * nx
+        norm = math.sqrt(fx * fx + fy * fy + fz * fz)
+        if norm < 1e-9:
+            fx, fy, fz, norm = r0, r3, r6, 1.0
+        speed = ((vx + oy * dz - oz * dy) * fx + (vy + oz * dx - ox * dz) * fy
+                 + (vz + ox * dy - oy * dx) * fz) / norm
+        # the mount point's acceleration over the last step, less gravity, in body axes
+        mx, my, mz = mount
+        px = axle_x + r0 * mx + r1 * my + r2 * mz - cx
+        py = axle_y + r3 * mx + r4 * my + r5 * mz - cy
+        pz = axle_z + r6 * mx + r7 * my + r8 * mz - cz
+        gx, gy, gz = 0.0, 0.0, -self.gravity
+        before = self.velocity_before_step
+        if before is None:
+            wx, wy, wz = -gx, -gy, -gz
+        else:
+            (bx, by, bz), (qx, qy, qz) = before
+            dt = self.dt
+            wx = ((vx + oy * pz - oz * py) - (bx + qy * pz - qz * py)) / dt - gx
+            wy = ((vy + oz * px - ox * pz) - (by + qz * px - qx * pz)) / dt - gy
+            wz = ((vz + ox * py - oy * px) - (bz + qx * py - qy * px)) / dt - gz
+        joints = self._joints_now
+        if joints is None:
+            joints = self._joints_now = pb.getJointStates(self.robot_id, self.wheel_joints,
+                                                          physicsClientId=c)
+        return (
+            math.atan2(-r6, math.hypot(r7, r8)),
+            ox * r1 + oy * r4 + oz * r7,
+            math.atan2(r3, r0),
+            speed,
+            com,
+            quat,
+            joints[0][0],
+            joints[1][0],
+            (r0 * ox + r3 * oy + r6 * oz, r1 * ox + r4 * oy + r7 * oz,
+             r2 * ox + r5 * oy + r8 * oz),
+            (r0 * wx + r3 * wy + r6 * wz, r1 * wx + r4 * wy + r7 * wz,
+             r2 * wx + r5 * wy + r8 * wz),
+        )
+
     def forward_axis(self, state: BodyState) -> Vector:
         """Unit vector along the floor, perpendicular to the axle: the robot's heading."""
         r = state.rotation

@@ -62,19 +62,50 @@ def test_empty_trace_has_its_header(tmp_path):
     assert all(len(v) == 0 for v in writer.arrays().values())
 
 
-def test_a_failing_writing_process_is_reported(tmp_path, monkeypatch):
-    """If the writing process cannot write, closing the trace raises OSError with its reason."""
-    start = record._start_writer
-
-    def into_a_folder(path, numbers_path):
-        return start(tmp_path, numbers_path)  # a folder cannot be opened as a file
-
-    monkeypatch.setattr(record, "_start_writer", into_a_folder)
+def test_a_trace_the_writing_process_cannot_write_is_reported(tmp_path, monkeypatch):
+    """If the writing process cannot write a trace, closing it raises OSError with the
+    reason; the process goes on serving other traces."""
+    monkeypatch.setattr(record, "_open_payload",
+                        lambda path, numbers: (str(tmp_path), str(numbers)))  # a folder
     writer = TraceWriter(tmp_path / "trace.csv", block_rows=5)
-    with pytest.raises(OSError, match="writing the trace failed"):
-        for row, entry in zip(_rows(50), _logs(50)):
-            writer.add(row, entry)
+    for row, entry in zip(_rows(50), _logs(50)):
+        writer.add(row, entry)
+    with pytest.raises(OSError, match="writing the trace failed: .*Is a directory"):
         writer.close()
+    monkeypatch.undo()
+    after = TraceWriter(tmp_path / "after.csv")
+    after.add(_rows(1)[0], {})
+    after.close()
+    assert len((tmp_path / "after.csv").read_text().splitlines()) == 2
+
+
+def test_writing_process_protocol_in_memory(tmp_path):
+    """The writing process's message loop, run here on byte streams: two traces at once,
+    replies in order, and a trace left open when the input ends completed and its
+    scratch file removed."""
+    import io
+
+    from sandbox.tracefile import pack_message, read_message, serve
+
+    a, b = tmp_path / "a.csv", tmp_path / "b.csv"
+    scratch = [tmp_path / "a.f64", tmp_path / "b.f64"]
+    rows = _rows(3)
+    source = io.BytesIO(b"".join(pack_message(m) for m in [
+        ("open", 1, (str(a), str(scratch[0]))),
+        ("open", 2, (str(b), str(scratch[1]))),
+        ("rows", 1, (rows[:2], [{"x": 1.0}, {"x": 2.0}])),
+        ("rows", 2, (rows[2:], [{}])),
+        ("close", 1, None),
+        ("close", 7, None),
+    ]))
+    sink = io.BytesIO()
+    serve(source, sink)
+    sink.seek(0)
+    assert read_message(sink) == {"names": ["x"], "dropped": [], "rows": 2}
+    assert "no open trace" in read_message(sink)["error"]
+    assert len(a.read_text().splitlines()) == 3 and len(b.read_text().splitlines()) == 2
+    assert np.fromfile(scratch[0]).size == 2 * (len(COLUMNS) + 1)
+    assert not scratch[1].exists(), "scratch file of the trace never closed"
 
 
 @pytest.mark.skipif(os.name != "posix", reason="SIGKILL is POSIX")

@@ -24,6 +24,7 @@ from sandbox.cli import app
 from sandbox.record import POSE_COLUMNS, read_trace
 from sandbox.robot import load_robot
 from sandbox.runner import RunSettings, Simulation, TimingError, run
+from sandbox.world import World
 
 ROOT = Path(__file__).resolve().parents[1]
 SHELF_RUNNER = ROOT / "robots" / "shelf-runner.yaml"
@@ -439,6 +440,26 @@ def test_same_seed_same_bytes_other_seed_other_bytes(shelf_runner, tmp_path):
     other = _cascade_trace_bytes(shelf_runner, tmp_path / "c", seed=8)
     assert first == again
     assert first != other
+
+
+class _WorldWithoutTickSense(World):
+    """The real world, but the runner must use its separate accessors at each tick."""
+
+    tick_sense = None
+
+
+@pytest.mark.parametrize("imu_latency", ["0 ms", "2 ms"])
+def test_one_pass_tick_sensing_gives_the_same_trace(imu_latency):
+    """World.tick_sense (one pass) and the separate accessors give the same trace to the
+    last bit, on the usual path (sample at the tick) and with sensor latency."""
+    spec = load_robot(SHELF_RUNNER, {"imu.latency": imu_latency})
+    settings = RunSettings(controller=str(CASCADE), duration=0.5, tilt=math.radians(3.0),
+                           seed=4)
+    fused = Simulation(spec, settings).run(None).trace
+    separate = Simulation(spec, settings, world_factory=_WorldWithoutTickSense).run(None).trace
+    assert list(fused) == list(separate)
+    for name in fused:
+        np.testing.assert_array_equal(fused[name], separate[name], err_msg=name)
 
 
 # ------------------------------------------------------------------ the run folder
