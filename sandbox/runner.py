@@ -302,9 +302,11 @@ class Simulation:
         except KeyboardInterrupt:
             status, message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
         finally:
-            wall = time.perf_counter() - wall_start  # the loop itself, trace included
-            writer.close()
-            world.close()
+            try:
+                writer.close()
+            finally:
+                wall = time.perf_counter() - wall_start  # the loop itself, trace included
+                world.close()
         trace = writer.arrays()
         summary = self._summary(status, trace, ticks_run, fell_at, clipped, wall, writer)
         if folder is not None:
