@@ -1,6 +1,6 @@
 """The run folder: streamed trace CSV, summary JSON, resolved run.yaml.
 
-Rows are buffered in blocks of half a simulated second or so and handed to a
+Rows are buffered in blocks (a quarter of a simulated second at 200 Hz) and handed to a
 trace-writing process (:mod:`sandbox.tracefile`) that writes and flushes each
 block as it comes; on every exit path the rest is handed over and the file
 completed, so an exception or Ctrl-C keeps what was recorded, and even a
@@ -94,8 +94,12 @@ class TraceWriter:
         os.close(handle)
         self._numbers_path = Path(numbers)
         self._id = next(_trace_ids)
-        self._writing = writing_process()
-        self._send(("open", self._id, _open_payload(path, self._numbers_path)))
+        try:
+            self._writing = writing_process()
+            self._send(("open", self._id, _open_payload(path, self._numbers_path)))
+        except BaseException:
+            self._numbers_path.unlink(missing_ok=True)
+            raise
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
         """One row: values in COLUMNS order, then the controller's logged channels."""

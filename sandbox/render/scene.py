@@ -296,8 +296,7 @@ class FrameRenderer:
         """Place the robot at frame ``i``; returns the camera's eye (m) and view matrix."""
         c, table, world = self.client, self.job.table, self.world
         robot = world.robot_id
-        pb.resetBasePositionAndOrientation(robot, table.com[i], table.quaternion[i],
-                                           physicsClientId=c)
+        world.set_state(table.com[i], table.quaternion[i])  # (also drops the world's reads)
         left, right = world.wheel_joints
         pb.resetJointState(robot, left, table.wheels[i, 0], physicsClientId=c)
         pb.resetJointState(robot, right, table.wheels[i, 1], physicsClientId=c)
