@@ -14,6 +14,7 @@ import csv
 import itertools
 import json
 import math
+import multiprocessing.util
 import os
 import re
 import subprocess
@@ -247,6 +248,9 @@ def writing_process() -> _WritingProcess:
             if old is not None and old.owner == os.getpid():
                 old.stop()
             atexit.register(_writing.stop)
+            # multiprocessing workers leave through os._exit, past atexit handlers, but
+            # run these: without them the helper is left for init to reap
+            multiprocessing.util.Finalize(_writing, _writing.stop, exitpriority=10)
         return _writing
 
 

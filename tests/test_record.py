@@ -138,3 +138,26 @@ def test_killed_simulation_leaves_every_block_it_sent(tmp_path):
     numbers = [p for p in Path(tempfile.gettempdir()).glob("upright-trace-*.f64")
                if p.stat().st_mtime >= started]
     assert not numbers, "the writing process removes its scratch file when nobody reads it"
+
+
+def _trace_in_a_worker(folder: str) -> int:
+    """Write a short trace in this (worker) process; the pid of its writing process."""
+    writer = TraceWriter(Path(folder) / "trace.csv")
+    writer.add(_rows(1)[0], {})
+    writer.close()
+    return record.writing_process().process.pid
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_a_worker_process_waits_for_its_writing_process(tmp_path):
+    """A multiprocessing worker (which leaves through os._exit, past atexit) still ends its
+    writing process and waits for it: nothing is left for init to reap."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(1, mp_context=multiprocessing.get_context("fork")) as pool:
+        helper = pool.submit(_trace_in_a_worker, str(tmp_path)).result()
+    status = Path(f"/proc/{helper}/stat")
+    state = status.read_text().split()[2] if status.exists() else "gone"
+    assert state == "gone", f"the worker's writing process is left behind (state {state})"
+    assert len((tmp_path / "trace.csv").read_text().splitlines()) == 2
