@@ -183,6 +183,9 @@ class Simulation:
             period, latency_steps = self.period, self.latency_steps
             step_controller = controller.step
             sense = getattr(world, "tick_sense", None) or partial(_tick_sense, world, gravity, dt)
+            # bound once: these run every tick
+            read_imu, count_ticks, add_row = imu.read, encoders.ticks, writer.add
+            take_logs, touching, fall_limit = reading.take_logs, world.body_touching, s.fall_limit
             for tick in range(n_ticks + 1):
                 t = tick * period
                 if timeline is not None:
@@ -202,8 +205,8 @@ class Simulation:
                 sample_index = math.floor(sample_at * dt * imu_rate + 1e-9)
                 elapsed = max(sample_index - last_sample_index, 0)
                 last_sample_index = sample_index
-                gyro, accel = imu.read(sample_truth[0], sample_truth[1], elapsed)
-                ticks_lr = encoders.ticks(angle_l, angle_r)
+                gyro, accel = read_imu(sample_truth[0], sample_truth[1], elapsed)
+                ticks_lr = count_ticks(angle_l, angle_r)
                 x += 0.5 * (speed + last_speed) * period if tick else 0.0
                 last_speed = speed
                 # -- the controller
@@ -225,16 +228,16 @@ class Simulation:
                 clipped += was_clipped
                 pending.append((step + latency_steps, left, right))
                 # -- the trace row
-                writer.add((
+                add_row((
                     t, x, pitch, pitch_rate, yaw, speed, left, right,
                     drive.current_left, drive.current_right, drive.battery_voltage,
                     gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2],
                     ticks_lr[0], ticks_lr[1],
                     pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
-                ), reading.take_logs())
+                ), take_logs())
                 ticks_run = tick + 1
                 # -- fell?
-                if abs(pitch) > s.fall_limit or world.body_touching(pitch, tick % 20 == 0):
+                if abs(pitch) > fall_limit or touching(pitch, tick % 20 == 0):
                     status, fell_at = STATUS_FELL, t
                     message = (f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)")
                     break
