@@ -310,6 +310,11 @@ class World:
         self._joints_now: tuple | None = None
         self._velocity_now: tuple | None = None
         self._clear_tilt = self._tilt_before_touching()
+        # what advance() binds to local names on every call (once per controller tick)
+        self._hot_names = (self.robot_id, self.wheel_joints, self.client, self.dt, 1.0 / self.dt,
+                           self.reflected_inertia, pb.getJointStates, pb.getBaseVelocity,
+                           pb.applyExternalTorque, pb.setJointMotorControlArray,
+                           pb.stepSimulation, pb.TORQUE_CONTROL, pb.WORLD_FRAME)
         self._push: list | None = None  # [steps left, force (world), point (body frame)]
         self.payload_ids: list[int] = []
         self._settle(tilt)
@@ -493,16 +498,9 @@ class World:
         first step uses the reads of the present instant if the controller
         tick already made them.
         """
-        robot, joints, client, dt = self.robot_id, self.wheel_joints, self.client, self.dt
-        read = pb.getJointStates
-        read_body = pb.getBaseVelocity
-        push_body = pb.applyExternalTorque
-        apply = pb.setJointMotorControlArray
-        step = pb.stepSimulation
-        torque_mode, world_frame = pb.TORQUE_CONTROL, pb.WORLD_FRAME
+        (robot, joints, client, dt, inv_dt, j, read, read_body, push_body, apply, step,
+         torque_mode, world_frame) = self._hot_names
         motors = drive.step
-        j = self.reflected_inertia
-        inv_dt = 1.0 / dt
         ax, ay, az = self._axle_axis
         last = self._last_rates
         if self._push is not None:
