@@ -68,7 +68,8 @@ class TraceWriter:
     """Streams trace rows to ``trace.csv``; keeps the numeric columns for metrics.
 
     With a path, blocks of rows go to the trace-writing process
-    (:mod:`sandbox.tracefile`), which formats and writes them on another core;
+    (:mod:`sandbox.tracefile`), which formats and writes them on another core
+    (or, where no such process can start, this process writes them itself);
     without one, the rows are only kept, in this process. Controller channels
     (``log.<name>``) are fixed by the names seen in the first block of rows; a
     name first logged later is counted in ``dropped_channels``.
@@ -85,18 +86,25 @@ class TraceWriter:
         self._writing: _WritingProcess | None = None
         self._numbers_path: Path | None = None
         self._numbers: np.ndarray | None = None
+        self._handle = None  # the CSV, when this process writes it itself
         if path is None:
             self._blocks = TraceBlocks()
             return
         # created (or emptied) here, so a folder that cannot be written fails at once
         with open(path, "w", encoding="utf-8"):
             pass
+        try:
+            writing = writing_process()
+        except OSError:  # no helper can start here: format and write in this process
+            self._handle = open(path, "a", newline="", encoding="utf-8")  # noqa: SIM115
+            self._blocks = TraceBlocks(self._handle)
+            return
         handle, numbers = tempfile.mkstemp(prefix="upright-trace-", suffix=".f64")
         os.close(handle)
         self._numbers_path = Path(numbers)
         self._id = next(_trace_ids)
+        self._writing = writing
         try:
-            self._writing = writing_process()
             self._send(("open", self._id, _open_payload(path, self._numbers_path)))
         except BaseException:
             self._numbers_path.unlink(missing_ok=True)
@@ -128,6 +136,10 @@ class TraceWriter:
             return
         self.flush()
         if self._blocks is not None:
+            if self._handle is not None:
+                if self._blocks.names is None:  # no row at all: still a header
+                    self._blocks.take([], [])
+                self._handle.close()
             self._result = self._blocks.result()
             self._numbers = np.frombuffer(self._blocks.numbers, dtype=float)
         else:

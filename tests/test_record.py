@@ -161,3 +161,27 @@ def test_a_worker_process_waits_for_its_writing_process(tmp_path):
     state = status.read_text().split()[2] if status.exists() else "gone"
     assert state == "gone", f"the worker's writing process is left behind (state {state})"
     assert len((tmp_path / "trace.csv").read_text().splitlines()) == 2
+
+
+def test_without_a_writing_process_the_trace_is_written_here(tmp_path, monkeypatch):
+    """Where no helper process can start, the same CSV bytes are written in this process."""
+    rows, logs = _rows(120, seed=2), _logs(120)
+    helper = TraceWriter(tmp_path / "helper.csv")
+    for row, entry in zip(rows, logs):
+        helper.add(row, dict(entry))
+    helper.close()
+
+    def cannot_start():
+        raise OSError("no interpreter to run")
+
+    monkeypatch.setattr(record, "writing_process", cannot_start)
+    here = TraceWriter(tmp_path / "here.csv")
+    for row, entry in zip(rows, logs):
+        here.add(row, dict(entry))
+    here.close()
+    assert (tmp_path / "here.csv").read_bytes() == (tmp_path / "helper.csv").read_bytes()
+    for name, values in helper.arrays().items():
+        np.testing.assert_array_equal(here.arrays()[name], values, err_msg=name)
+    empty = TraceWriter(tmp_path / "empty.csv")
+    empty.close()
+    assert (tmp_path / "empty.csv").read_text().strip() == ",".join(COLUMNS)
