@@ -137,8 +137,7 @@ class TraceWriter:
         self.flush()
         if self._blocks is not None:
             if self._handle is not None:
-                if self._blocks.names is None:  # no row at all: still a header
-                    self._blocks.take([], [])
+                self._blocks.start_if_empty()
                 self._handle.close()
             self._result = self._blocks.result()
             self._numbers = np.frombuffer(self._blocks.numbers, dtype=float)

@@ -112,6 +112,11 @@ class TraceBlocks:
             csv.writer(self.handle, lineterminator="\n").writerow(header)
             self.handle.flush()
 
+    def start_if_empty(self) -> None:
+        """Fix the (empty) channel list and write the header if no block came."""
+        if self.names is None:
+            self.take([], [])
+
     def result(self) -> dict:
         """Log channel names, dropped channels and the row count."""
         return {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows}
@@ -174,8 +179,11 @@ class _Trace:
 
     def finish(self) -> dict:
         """Header if no row came, files closed; the reply to ``close``."""
-        if not self.error and self.blocks.names is None:
-            self.take([], [])
+        if not self.error:
+            try:
+                self.blocks.start_if_empty()
+            except OSError as err:
+                self.fail(err)
         self.close_files()
         return {"error": self.error} if self.error else self.blocks.result()
 
