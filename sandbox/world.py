@@ -255,6 +255,18 @@ def _matmul(a: Matrix, b: Matrix) -> Matrix:
                  for i in range(3) for j in range(3))
 
 
+class _HeldTorques:
+    """Stands in for a drive train in :meth:`World.step`: the same torques at any rate."""
+
+    __slots__ = ("torques",)
+
+    def __init__(self, left: float, right: float):
+        self.torques = (left, right)
+
+    def step(self, rate_left: float, rate_right: float, dt: float) -> tuple[float, float]:
+        return self.torques
+
+
 class World:
     """A pybullet world holding one robot on the ground, stepped at a fixed ``physics_dt``."""
 
@@ -472,21 +484,10 @@ class World:
         """The engine's state has changed: later reads must ask it again."""
         self._joints_now = self._velocity_now = None
 
-    def step(self, torque_left: float, torque_right: float,
-             rate_left: float = 0.0, rate_right: float = 0.0) -> None:
-        """Apply wheel torques (N·m, + forward, reaction on the body) and advance one step.
-
-        ``rate_left``/``rate_right`` are this step's wheel rates relative to the
-        body; they are needed only for the rotor-inertia coupling.
-        """
-        if self.reflected_inertia > 0.0:
-            torque_left, torque_right = self._rotor_coupling(
-                torque_left, torque_right, rate_left, rate_right)
-        pb.setJointMotorControlArray(self.robot_id, self.wheel_joints, pb.TORQUE_CONTROL,
-                                     forces=(torque_left, torque_right),
-                                     physicsClientId=self.client)
-        pb.stepSimulation(physicsClientId=self.client)
-        self._forget_reads()
+    def step(self, torque_left: float, torque_right: float) -> None:
+        """Apply wheel torques (N·m, + forward, reaction on the body) and advance one step,
+        with the rotor coupling and any push as in :meth:`advance`."""
+        self.advance(1, _HeldTorques(torque_left, torque_right))
 
     def advance(self, steps: int, drive) -> None:
         """Run ``steps`` physics steps with the motors in the loop.
@@ -516,7 +517,12 @@ class World:
                 joints_now = None
             rate_left, rate_right = left[1], right[1]
             torque_left, torque_right = motors(rate_left, rate_right, dt)
-            if j > 0.0:  # see _rotor_coupling for the physics
+            if j > 0.0:
+                # Rotor coupling. The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇
+                # that link inertias cannot hold: it gives +Jθ̈ on each wheel (as a joint
+                # torque) and +Jφ̈ on the body (the joint's reaction is undone by an
+                # external torque). The accelerations are the previous step's, from
+                # velocity differences.
                 if velocity_now is None:
                     velocity = read_body(robot, physicsClientId=client)
                 else:
@@ -553,35 +559,6 @@ class World:
             pushed, self._push = self._push, None
             self.advance(1, drive)
             self._push = pushed
-
-    def _rotor_coupling(self, torque_left: float, torque_right: float,
-                        rate_left: float, rate_right: float) -> tuple[float, float]:
-        """Add the rotor inertia's cross term; returns the wheel torques to apply.
-
-        The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇ that link inertias
-        cannot hold: it gives +Jθ̈ on each wheel (as a joint torque) and +Jφ̈ on
-        the body (the joint's reaction is undone by an external torque). The
-        accelerations are the previous step's, from velocity differences.
-        """
-        j = self.reflected_inertia
-        w = self._velocity_now or pb.getBaseVelocity(self.robot_id, physicsClientId=self.client)
-        w = w[1]
-        axis = self._axle_axis
-        body_rate = w[0] * axis[0] + w[1] * axis[1] + w[2] * axis[2]
-        last = self._last_rates
-        self._last_rates = (body_rate, rate_left + body_rate, rate_right + body_rate)
-        if last is None:
-            return torque_left, torque_right
-        inv_dt = 1.0 / self.dt
-        body_acc = (body_rate - last[0]) * inv_dt
-        left_acc = (rate_left + body_rate - last[1]) * inv_dt
-        right_acc = (rate_right + body_rate - last[2]) * inv_dt
-        body_torque = j * (left_acc + right_acc + 2.0 * body_acc)
-        pb.applyExternalTorque(
-            self.robot_id, -1,
-            (axis[0] * body_torque, axis[1] * body_torque, axis[2] * body_torque),
-            pb.WORLD_FRAME, physicsClientId=self.client)
-        return torque_left + j * body_acc, torque_right + j * body_acc
 
     # ------------------------------------------------------------- true state
     def body_state(self) -> BodyState:
