@@ -1,9 +1,11 @@
-"""The fixed-rate loop: world, actuators, IMU, controller, events and recorder.
+"""The run: world, actuators, IMU, controller, events and recorder on one schedule.
 
-Each physics step: read the wheel rates, step the motors and battery, apply
-the torques, step the engine. Each controller tick: read the true state, hand
-the controller the IMU sample and encoder counts it would have now, hold its
-duties (after the optional latency) until the next tick, write one trace row.
+Each physics step (in :meth:`World.advance`): read the wheel rates, step the
+motors and battery, apply the torques, step the engine. Each controller tick:
+fire the events due, read the true state, hand the controller the IMU sample
+and encoder counts the board would have now, send its duties towards the
+bridge, write one trace row. Between ticks the world advances from one due
+moment to the next (:mod:`sandbox.schedule`).
 """
 
 from __future__ import annotations
@@ -13,7 +15,6 @@ import math
 import platform
 import time
 import traceback
-from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from functools import partial
@@ -38,6 +39,7 @@ from .imu import Encoders, Imu
 from .metrics import run_figures
 from .record import TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
+from .schedule import DutyLine, ImuSamples, TickClock, imu_truth
 from .world import Ground, World
 
 STATUS_COMPLETED = "completed"
@@ -97,19 +99,6 @@ def _nearby_rates(physics_dt: float) -> str:
     return ", ".join(f"{base / n:g} Hz" for n in (2, 4, 5, 10))
 
 
-def sample_step(tick_step: int, physics_dt: float, imu_rate: float, latency_steps: float) -> int:
-    """Physics step of the newest IMU sample a controller sees at ``tick_step``.
-
-    Samples are taken at multiples of 1/imu_rate; the newest one at or before
-    the tick time less the sensor's latency.
-    """
-    t = (tick_step - latency_steps) * physics_dt
-    if t <= 0:
-        return 0
-    n = math.floor(t * imu_rate + 1e-9)
-    return min(tick_step, round(n / imu_rate / physics_dt))
-
-
 class Simulation:
     """One run of a controller on a robot. Use :func:`run` for the whole thing."""
 
@@ -128,7 +117,11 @@ class Simulation:
             raise TimingError(
                 f"imu.latency ({spec.imu.latency * 1000:g} ms) must be shorter than the "
                 f"controller period ({self.period * 1000:g} ms)")
-        self.latency_steps = round(settings.latency / settings.physics_dt)
+        board = getattr(spec, "board", None)
+        self.loop_jitter = float(getattr(board, "loop_jitter", 0.0) or 0.0)
+        self.compute_time = float(getattr(board, "compute_time", 0.0) or 0.0)
+        # the board's compute time and the added latency both delay the duties
+        self.latency_steps = round((self.compute_time + settings.latency) / settings.physics_dt)
         self.robot_facts = RobotFacts.from_spec(spec, self.rate_hz, settings.physics_dt)
         self.controller_class = cls
         self.ground = ground
@@ -136,17 +129,12 @@ class Simulation:
         self.world_factory = world_factory  # tests pass a fake world here
 
     def run(self, folder: Path | None) -> RunResult:
-        spec, s = self.spec, self.settings
-        dt = s.physics_dt
-        spt = self.steps_per_tick
-        n_ticks = int(round(s.duration * self.rate_hz))
-        sensor_latency_steps = spec.imu.latency / dt
-        imu_rate = spec.imu.rate
-        mount = tuple(float(v) for v in spec.imu.at)
-
+        """Run to the end, a fall, a controller failure or Ctrl-C; the trace is always kept."""
+        s = self.settings
         if folder is not None:
             folder.mkdir(parents=True, exist_ok=True)
-        world = self.world_factory(spec, physics_dt=dt, tilt=s.tilt, ground=self.ground)
+        world = self.world_factory(self.spec, physics_dt=s.physics_dt, tilt=s.tilt,
+                                   ground=self.ground)
         try:
             # without a folder the trace is kept in memory only (sweeps need the figures)
             writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
@@ -154,156 +142,18 @@ class Simulation:
         except OSError:
             world.close()
             raise
-        drive = DriveTrain(spec)
-        imu = Imu(spec.imu, seed=s.seed)
-        encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)
-        reading = Reading(dt=self.period)
-        timeline = self.timeline
-        status, message, fell_at = STATUS_COMPLETED, "", None
-        clipped = 0
-        ticks_run = 0
+        loop = _Loop(self, world, writer)
         wall_start = time.perf_counter()
-        gravity = world.gravity_vector()
-        coupled = world.reflected_inertia > 0.0  # the world then reads the body every step
-        fast_sampling = coupled and not sensor_latency_steps
-        # a sample every physics step and no sensor latency: the sample is always the tick's
-        every_step = not sensor_latency_steps and abs(imu_rate * dt - 1.0) < 1e-9
-        sampled_now = False
         try:
-            controller = make_controller(self.controller_class, s.config, self.robot_facts)
-            if hasattr(controller, "reset"):
-                _call(controller.reset, "reset", 0.0, self.controller_class)
-            pending: deque[tuple[int, float, float]] = deque()  # (apply at step, left, right)
-            step = 0
-            x = 0.0
-            last_speed = 0.0
-            last_sample_index = -1
-            # true (rate, specific force) of IMU samples taken but not yet seen, by step
-            truths: dict[int, tuple] = {}
-            period, latency_steps = self.period, self.latency_steps
-            step_controller = controller.step
-            sense = getattr(world, "tick_sense", None) or partial(_tick_sense, world, gravity, dt)
-            # bound once: these run every tick
-            read_imu, count_ticks, add_row = imu.read, encoders.ticks, writer.add
-            take_logs, touching, fall_limit = reading.take_logs, world.body_touching, s.fall_limit
-            for tick in range(n_ticks + 1):
-                t = tick * period
-                if timeline is not None:
-                    timeline.fire(t, x, world, drive, imu, encoders)
-                (pitch, pitch_rate, yaw, speed, pose, q, angle_l, angle_r, true_rate,
-                 true_force) = sense(mount)
-                # -- the IMU sample the controller sees now
-                if sampled_now or not tick:
-                    # taken now (the first sample has no earlier velocity: no acceleration)
-                    sample_at, sample_truth = step, (true_rate, true_force)
-                else:
-                    sample_at = sample_step(step, dt, imu_rate, sensor_latency_steps)
-                if sample_at in truths:
-                    sample_truth = truths[sample_at]
-                    if len(truths) > 1:
-                        truths = {k: v for k, v in truths.items() if k >= sample_at}
-                sample_index = math.floor(sample_at * dt * imu_rate + 1e-9)
-                elapsed = max(sample_index - last_sample_index, 0)
-                last_sample_index = sample_index
-                gyro, accel = read_imu(sample_truth[0], sample_truth[1], elapsed)
-                ticks_lr = count_ticks(angle_l, angle_r)
-                x += 0.5 * (speed + last_speed) * period if tick else 0.0
-                last_speed = speed
-                # -- the controller
-                reading.t = t
-                reading.gyro = gyro
-                reading.accel = accel
-                reading.ticks = ticks_lr
-                reading.battery_v = drive.battery_voltage
-                if timeline is not None:
-                    reading.setpoint = timeline.setpoint
-                try:
-                    out = step_controller(reading)
-                except Exception as err:
-                    raise _failure(err, "step", t, self.controller_class) from err
-                try:
-                    left, right, was_clipped = check_duties(out)
-                except ControllerError as err:
-                    raise ControllerError(f"at t = {t:.3f} s: step {err}") from None
-                clipped += was_clipped
-                pending.append((step + latency_steps, left, right))
-                # -- the trace row
-                add_row((
-                    t, x, pitch, pitch_rate, yaw, speed, left, right,
-                    drive.current_left, drive.current_right, drive.battery_voltage,
-                    gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2],
-                    ticks_lr[0], ticks_lr[1],
-                    pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
-                ), take_logs())
-                ticks_run = tick + 1
-                # -- fell?
-                if abs(pitch) > fall_limit or touching(pitch, tick % 20 == 0):
-                    status, fell_at = STATUS_FELL, t
-                    message = (f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)")
-                    break
-                if tick == n_ticks:
-                    break
-                # -- physics until the next tick, stopping where something is due
-                target = step + spt
-                next_sample = target if every_step else sample_step(target, dt, imu_rate,
-                                                                   sensor_latency_steps)
-                sampled_now = fast_sampling and next_sample == target
-                if sampled_now:
-                    # The usual case: the sample is taken at the tick itself and the coupled
-                    # world remembers the body's velocity before its last step, so the
-                    # tick's sensing gives the sample's truth.
-                    while step < target:
-                        while pending and pending[0][0] <= step:
-                            _, left, right = pending.popleft()
-                            drive.set_duty(left, right)
-                        stop = pending[0][0] if pending and pending[0][0] < target else target
-                        world.advance(stop - step, drive)
-                        step = stop
-                    continue
-                # With sensor latency the newest sample of this period may be seen only
-                # a tick later (when none falls between the tick and tick + latency).
-                newest = (sample_step(target, dt, imu_rate, 0.0) if sensor_latency_steps
-                          else next_sample)
-                due = [n for n in {next_sample, newest} if n > step]
-                if any(n - 1 == step for n in due):
-                    state = world.body_state()
-                before = {n: state.point_velocity(mount) for n in due if n - 1 == step}
-                # stop one step before a sample (its velocity) and at it; at the tick the
-                # coupled world remembers the velocity before its last step
-                stops = sorted({p for n in due if not (coupled and n == target)
-                                for p in (n - 1, n) if step < p < target})
-                while step < target:
-                    while pending and pending[0][0] <= step:
-                        _, left, right = pending.popleft()
-                        drive.set_duty(left, right)
-                    stop = target
-                    if pending and pending[0][0] < stop:
-                        stop = pending[0][0]
-                    for p in stops:
-                        if step < p:
-                            stop = min(stop, p)
-                            break
-                    world.advance(stop - step, drive)
-                    step = stop
-                    if step != target and (step in due or step + 1 in due):
-                        here = world.body_state()
-                        if step + 1 in due:
-                            before[step + 1] = here.point_velocity(mount)
-                        if step in due:
-                            truths[step] = self._imu_truth(here, mount, gravity,
-                                                           before.get(step), dt)
-                if target in due:
-                    state = world.body_state()
-                    prev = (world.previous_point_velocity(state, mount)
-                            if coupled and target not in before else before.get(target))
-                    truths[target] = self._imu_truth(state, mount, gravity, prev, dt)
+            loop.run()
         except ControllerError as err:
-            status, message = STATUS_CONTROLLER_ERROR, str(err)
+            loop.status, loop.message = STATUS_CONTROLLER_ERROR, str(err)
             if folder is not None:
                 (folder / "controller_error.txt").write_text(
-                    message + "\n\n" + "".join(traceback.format_exception(err)), encoding="utf-8")
+                    loop.message + "\n\n" + "".join(traceback.format_exception(err)),
+                    encoding="utf-8")
         except KeyboardInterrupt:
-            status, message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
+            loop.status, loop.message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
         finally:
             try:
                 writer.close()
@@ -311,38 +161,22 @@ class Simulation:
                 wall = time.perf_counter() - wall_start  # the loop itself, trace included
                 world.close()
         trace = writer.arrays()
-        summary = self._summary(status, trace, ticks_run, fell_at, clipped, wall, writer)
+        summary = self._summary(loop, trace, wall, writer)
         if folder is not None:
             write_json(folder / "summary.json", summary)
-        return RunResult(status=status, summary=summary, folder=folder, trace=trace,
-                         message=message)
+        return RunResult(status=loop.status, summary=summary, folder=folder, trace=trace,
+                         message=loop.message)
 
-    @staticmethod
-    def _imu_truth(state, mount, gravity, prev_mount_velocity, dt: float):
-        """True gyro rate and specific force at the IMU (sensor axes = body axes).
-
-        The acceleration is the mount point's velocity change over the last
-        physics step, so an IMU high on the body feels the robot's own motion.
-        """
-        gx, gy, gz = gravity
-        if prev_mount_velocity is None:
-            force = (-gx, -gy, -gz)
-        else:
-            v = state.point_velocity(mount)
-            p = prev_mount_velocity
-            force = ((v[0] - p[0]) / dt - gx, (v[1] - p[1]) / dt - gy, (v[2] - p[2]) / dt - gz)
-        return state.to_body(state.angular_velocity), state.to_body(force)
-
-    def _summary(self, status, trace, ticks_run, fell_at, clipped, wall, writer) -> dict:
+    def _summary(self, loop: _Loop, trace, wall, writer) -> dict:
         s = self.settings
-        duration = (ticks_run - 1) * self.period if ticks_run else 0.0
+        duration = loop.clock.time_of(loop.ticks_run - 1) if loop.ticks_run else 0.0
         figures = run_figures(trace)
-        return {
-            "status": status,
+        summary = {
+            "status": loop.status,
             "duration_s": duration,
-            "fell_at_s": fell_at,
+            "fell_at_s": loop.fell_at,
             **figures,
-            "clipped_duties": int(clipped),
+            "clipped_duties": int(loop.clipped),
             "realtime_factor": duration / wall if wall > 0 else None,
             "seed": s.seed,
             "rate_hz": self.rate_hz,
@@ -350,24 +184,155 @@ class Simulation:
             "test": s.test_name,
             "dropped_log_channels": sorted(getattr(writer, "dropped_channels", ())),
         }
+        if loop.clock.jittered:
+            intervals = loop.clock.intervals()[: max(loop.ticks_run - 1, 0)]
+            summary["tick_interval_std_s"] = float(intervals.std()) if intervals.size else 0.0
+        return summary
+
+
+class _Loop:
+    """The run's loop: a schedule of due moments on the physics-step clock.
+
+    At each controller tick the events due fire, the true state is read, the
+    IMU sample and encoder counts the board would have go to the controller,
+    its duties leave for the bridge and a trace row is written. Between two
+    ticks the world advances from one due moment to the next: a duty reaching
+    the bridge (after the board's compute time and any added latency), an IMU
+    sample to be read. The clock (:class:`TickClock`), the duty line
+    (:class:`DutyLine`) and the IMU's samples (:class:`ImuSamples`) each own
+    their state and say what is due next.
+    """
+
+    def __init__(self, sim: Simulation, world: Any, writer: Any):
+        spec, s = sim.spec, sim.settings
+        self.sim, self.world, self.writer = sim, world, writer
+        self.dt = s.physics_dt
+        self.n_ticks = int(round(s.duration * sim.rate_hz))
+        self.clock = TickClock(sim.steps_per_tick, s.physics_dt, self.n_ticks,
+                               sim.loop_jitter, s.seed)
+        self.duties = DutyLine(sim.latency_steps)
+        self.drive = DriveTrain(spec)
+        self.imu = Imu(spec.imu, seed=s.seed)
+        self.encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)
+        self.mount = tuple(float(v) for v in spec.imu.at)
+        gravity = world.gravity_vector()
+        coupled = world.reflected_inertia > 0.0  # the world then reads the body every step
+        self.samples = ImuSamples(self.imu, spec.imu.rate, s.physics_dt, spec.imu.latency,
+                                  self.mount, gravity, coupled)
+        self.sense = (getattr(world, "tick_sense", None)
+                      or partial(_tick_sense, world, gravity, s.physics_dt))
+        self.reading = Reading(dt=sim.period)
+        self.timeline = sim.timeline
+        self.status, self.message, self.fell_at = STATUS_COMPLETED, "", None
+        self.clipped = 0
+        self.ticks_run = 0
+        self.step = 0
+        self.x = 0.0  # distance travelled along the heading (m), trapezoidal from the speed
+        self.last_speed = 0.0
+        self.controller: Any = None
+
+    def run(self) -> None:
+        sim = self.sim
+        self.controller = make_controller(sim.controller_class, sim.settings.config,
+                                          sim.robot_facts)
+        if hasattr(self.controller, "reset"):
+            _call(self.controller.reset, "reset", 0.0, sim.controller_class)
+        for tick in range(self.n_ticks + 1):
+            if self.tick(tick) or tick == self.n_ticks:
+                break
+            self.advance_to(self.clock.step_of(tick + 1))
+
+    def tick(self, tick: int) -> bool:
+        """One controller tick at the present step; True if the robot fell."""
+        t = self.clock.time_of(tick)
+        if self.timeline is not None:
+            self.timeline.fire(t, self.x, self.world, self.drive, self.imu, self.encoders)
+        (pitch, pitch_rate, yaw, speed, pose, q, angle_l, angle_r, true_rate,
+         true_force) = self.sense(self.mount)
+        truth, elapsed = self.samples.seen(self.step, tick == 0, (true_rate, true_force))
+        gyro, accel = self.imu.read(truth[0], truth[1], elapsed)
+        ticks_lr = self.encoders.ticks(angle_l, angle_r)
+        if tick:
+            self.x += 0.5 * (speed + self.last_speed) * (t - self.clock.time_of(tick - 1)
+                                                         if self.clock.jittered else
+                                                         self.sim.period)
+        self.last_speed = speed
+        left, right = self.control(t, tick, gyro, accel, ticks_lr)
+        drive = self.drive
+        self.writer.add((
+            t, self.x, pitch, pitch_rate, yaw, speed, left, right,
+            drive.current_left, drive.current_right, drive.battery_voltage,
+            gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2], ticks_lr[0], ticks_lr[1],
+            pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
+        ), self.reading.take_logs())
+        self.ticks_run = tick + 1
+        if abs(pitch) > self.sim.settings.fall_limit or self.world.body_touching(
+                pitch, tick % 20 == 0):
+            self.status, self.fell_at = STATUS_FELL, t
+            self.message = f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)"
+            return True
+        return False
+
+    def control(self, t: float, tick: int, gyro, accel, ticks_lr) -> tuple[float, float]:
+        """Hand the controller this tick's reading; send its duties towards the bridge."""
+        r = self.reading
+        r.t, r.gyro, r.accel, r.ticks = t, gyro, accel, ticks_lr
+        if self.clock.jittered:
+            r.dt = self.clock.interval(tick)
+        r.battery_v = self.drive.battery_voltage
+        if self.timeline is not None:
+            r.setpoint = self.timeline.setpoint
+        try:
+            out = self.controller.step(r)
+        except BaseException as err:
+            if isinstance(err, KeyboardInterrupt):
+                raise
+            raise _failure(err, "step", t, self.sim.controller_class) from err
+        try:
+            left, right, was_clipped = check_duties(out)
+        except ControllerError as err:
+            raise ControllerError(f"at t = {t:.3f} s: {err}") from None
+        self.clipped += was_clipped
+        self.duties.send(self.step, left, right)
+        return left, right
+
+    def advance_to(self, target: int) -> None:
+        """Advance the world to the step of the next tick, stopping where something is due."""
+        world, drive, duties, samples = self.world, self.drive, self.duties, self.samples
+        step = self.step
+        stops = samples.plan(step, target, world)
+        while step < target:
+            duties.deliver(step, drive)
+            stop = duties.next_arrival(target)
+            for p in stops:
+                if step < p:
+                    stop = min(stop, p)
+                    break
+            world.advance(stop - step, drive)
+            step = stop
+            samples.reached(step, target, world)
+        samples.end_period(target, world)
+        self.step = step
 
 
 def _tick_sense(world: Any, gravity, dt: float, mount) -> tuple:
     """``World.tick_sense`` from a world's separate accessors (for worlds without it)."""
     state = world.body_state()
     angle_l, angle_r, _, _ = world.wheel_state()
-    true_rate, true_force = Simulation._imu_truth(
+    true_rate, true_force = imu_truth(
         state, mount, gravity, world.previous_point_velocity(state, mount), dt)
     return (state.pitch, state.pitch_rate, state.yaw, world.forward_speed(state), state.com,
             state.com_orientation, angle_l, angle_r, true_rate, true_force)
 
 
-def _failure(err: Exception, name: str, t: float, cls: type) -> ControllerError:
+def _failure(err: BaseException, name: str, t: float, cls: type) -> ControllerError:
     """A controller method's exception as a ControllerError naming the time and the line."""
     if isinstance(err, ControllerError):
         return ControllerError(f"at t = {t:.3f} s: {err}")
     where = script_location(err, cls)
     at = f" ({where})" if where else ""
+    if isinstance(err, SystemExit):
+        return ControllerError(f"at t = {t:.3f} s: {name}() called sys.exit({err.code!r}){at}")
     return ControllerError(f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}")
 
 
@@ -375,7 +340,9 @@ def _call(method: Callable, name: str, t: float, cls: type, *args):
     """Call a controller method; anything it raises becomes a ControllerError naming t."""
     try:
         return method(*args)
-    except Exception as err:
+    except BaseException as err:
+        if isinstance(err, KeyboardInterrupt):
+            raise
         raise _failure(err, name, t, cls) from err
 
 
