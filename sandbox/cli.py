@@ -659,3 +659,53 @@ def tune(
     if result.stopped == "interrupted":
         raise typer.Exit(EXIT_INTERRUPTED)
     raise typer.Exit(EXIT_OK if result.after.passed else EXIT_FELL)
+
+
+@app.command()
+@handles_errors
+def margins(
+    robot: RobotArg,
+    controller: ControllerArg,
+    test: Annotated[str, typer.Option(
+        "--test", help="The test that must still pass (built-in name or test file).")] = "push",
+    stress: Annotated[list[str] | None, typer.Option(
+        "--stress", help="Only these stresses (repeat): delay, strength, weak_side, backlash, "
+        "imu_bandwidth, payload, jitter.")] = None,
+    latency: Annotated[float, typer.Option(
+        "--latency", help="Delay from the controller's output to the bridge, ms.")] = 0.0,
+    seed: SeedOption = 0,
+    set_: SetOption = None,
+    config_file: ConfigOption = None,
+    rate: RateOption = None,
+    workers: WorkersOption = None,
+    cluster: ClusterOption = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
+) -> None:
+    """How much of each imperfection the controller survives: bisection on full runs."""
+    from .margins import STRESS_NAMES, find_margins, margins_table
+
+    spec, settings = _robot_and_settings(robot, controller, set_, config_file, None, 0.0,
+                                         seed, rate)
+    settings = replace(settings, latency=latency / 1000.0)
+    progress = _ProgressLine("runs")
+    try:
+        result = find_margins(spec, settings, test=test, stresses=stress or STRESS_NAMES,
+                              workers=workers, cluster=cluster, progress=progress)
+    finally:
+        progress.close()
+    if as_json:
+        typer.echo(json.dumps(result.json(), indent=2))
+    elif not result.baseline_passed:
+        typer.echo(f"{spec.name} with {_controller_label(controller)} already fails "
+                   f"'{test}' without any stress ({result.baseline_message}): run "
+                   f"`upright run ... --test {test}` to see why, and fix that first.")
+    else:
+        typer.echo(f"margins of {_controller_label(controller)} on {spec.name}, test '{test}'")
+        typer.echo(table(margins_table(result),
+                         ["stress", "robot's own", "survives up to", "resolution", "runs"]))
+        for name, why in result.skipped.items():
+            typer.echo(f"{name}: skipped ({why})")
+        typer.echo("A margin belongs to this controller on this robot file, found on full runs "
+                   "with one seed. The real robot has imperfections no file lists: keep some "
+                   "of each margin in hand.")
+    raise typer.Exit(EXIT_OK if result.baseline_passed else EXIT_FELL)

@@ -95,6 +95,7 @@ class PointJob:
     config_values: dict[str, float]
     seed: int
     test: str | None = None  # a built-in name, or a key of RunCommon.test_files
+    stress: tuple[str, float] | None = None  # (name, amount) for `upright margins`
 
 
 def controller_spec(common: RunCommon) -> str:
@@ -107,9 +108,14 @@ def run_point(common: RunCommon, job: PointJob) -> dict[str, Any]:
     from ..robot import robot_from_dict
     from ..session import run_once
 
-    spec = robot_from_dict(common.robot, common.robot_source, job.robot_values or None)
-    settings = replace(common.settings, controller=controller_spec(common),
-                       config={**common.settings.config, **job.config_values}, seed=job.seed)
+    robot, settings = common.robot, common.settings
+    if job.stress is not None:
+        from ..margins import apply_stress
+
+        robot, settings = apply_stress(robot, settings, job.stress)
+    spec = robot_from_dict(robot, common.robot_source, job.robot_values or None)
+    settings = replace(settings, controller=controller_spec(common),
+                       config={**settings.config, **job.config_values}, seed=job.seed)
     test = job.test
     if test is not None and test in common.test_files:
         test = str(common.test_files[test].local_path())
