@@ -120,6 +120,8 @@ def any_to_si(value: object) -> float:
     text = check_unit_text(value, "a number or a value with a unit")
     if _PLAIN_NUMBER.match(text):
         return to_si(text, "fraction")
+    if not re.match(r"[-+]?\.?[0-9]", text):  # pint would read a lone 'a' as a year
+        raise UnitError(f"cannot read {value!r} as a number or a value with a unit")
     try:
         quantity = registry().Quantity(_rewrite(text, "a number"))
         number = float(quantity.to_base_units().magnitude)

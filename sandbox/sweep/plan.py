@@ -104,7 +104,8 @@ def _number(text: str, option: str, whole: str, key: str = "") -> float:
         try:
             value = value_to_si(key, text.strip())
         except UnitError as err:
-            raise SweepError(f"{option} {whole!r}: {err}") from None
+            raise SweepError(f"{option} {whole!r}: {text.strip()!r} is not a number in SI or "
+                             f"a value with a unit as --set takes ({err})") from None
     if not math.isfinite(value):
         raise SweepError(f"{option} {whole!r}: values must be finite")
     return value
