@@ -88,6 +88,9 @@ class _BoundedLoader(yaml.SafeLoader):
             _check_scalar(node, path)
         elif isinstance(node, yaml.MappingNode):
             _check_keys(node, path)
+            _check_decimal_comma([v for pair in node.value for v in pair], path, True)
+        elif isinstance(node, yaml.SequenceNode):
+            _check_decimal_comma(node.value, path, False)
         return node
 
 
@@ -130,6 +133,30 @@ def _check_keys(node: yaml.MappingNode, path: str) -> None:
                      else f"twice (lines {seen[ident]} and {line})")
             raise _Refused(key.start_mark, where, f"given {lines}: keep one")
         seen[ident] = line
+
+
+_UNIT_AFTER_DIGITS = re.compile(r"^[0-9]+\s*[A-Za-z%°µ]")
+
+
+def _check_decimal_comma(nodes: list, path: str, mapping: bool) -> None:
+    """'{radius: 32,5 mm}' reads as radius 32 and a key '5 mm'; '[0, 32,5 mm]' as a fourth
+    item: a number, a comma with no space, and digits with a unit is a decimal comma."""
+    for i, (prev, nxt) in enumerate(zip(nodes, nodes[1:])):
+        if not (isinstance(prev, yaml.ScalarNode) and isinstance(nxt, yaml.ScalarNode)):
+            continue
+        if prev.style is not None or nxt.style is not None or prev.tag != _INT:
+            continue
+        between = prev.end_mark.buffer[prev.end_mark.index:nxt.start_mark.index] \
+            if prev.end_mark.buffer is not None else None
+        if between == "," and _UNIT_AFTER_DIGITS.match(nxt.value):
+            where = path
+            if mapping and i % 2 == 1:  # prev is a value: name its key
+                where = f"{path}.{nodes[i - 1].value}" if path else str(nodes[i - 1].value)
+            text = f"{prev.value},{nxt.value}"
+            fixed = f"{prev.value}.{nxt.value}"
+            raise _Refused(prev.start_mark, where,
+                           f"'{text}' has a decimal comma (YAML reads {prev.value!r} and "
+                           f"{nxt.value!r}): write {fixed}")
 
 
 def parse_yaml_text(text: str, source: str) -> Any:
