@@ -58,8 +58,8 @@ def _gear_ratio(value: object) -> object:
                 raise ValueError(f"{value!r}: both sides of a ratio must be above zero")
             return high / low
         try:
-            return to_si(value, "fraction")
-        except UnitError:
+            return float(value)
+        except ValueError:
             raise ValueError(f"cannot read {value!r} as a gear ratio: write 48, or '1:48'") \
                 from None
     return value

@@ -151,6 +151,8 @@ def check_unit_text(text: str, example: str) -> str:
     if "," in stripped:  # pint drops commas: '1, 5 mm' would silently read as 15 mm
         raise UnitError(f"{text!r} holds a comma: give one value, with a decimal point "
                         f"(expected {example})")
+    if ":" in stripped:  # pint reads '1:2:3' as 6
+        raise UnitError(f"{text!r} holds a colon: give one value (expected {example})")
     powers = list(_POWER.finditer(stripped))
     for match in powers:
         exponent, rest = match.group(3), stripped[match.end():].lstrip()
