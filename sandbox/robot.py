@@ -312,7 +312,7 @@ def key_kind(dotted: str) -> str | None:
             return None
         while not getattr(annotation, "__metadata__", None) and len(
                 [a for a in getattr(annotation, "__args__", ()) if a is not type(None)]) == 1 \
-                and not getattr(annotation, "__origin__", None) in (list, tuple):
+                and getattr(annotation, "__origin__", None) not in (list, tuple):
             annotation = next(a for a in annotation.__args__ if a is not type(None))  # X | None
     for item in (*metadata, *getattr(annotation, "__metadata__", ())):
         kind = getattr(getattr(item, "func", None), "unit_kind", None)

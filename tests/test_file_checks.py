@@ -7,6 +7,7 @@ named, one line, no traceback. Physics checks name their source.
 from __future__ import annotations
 
 import json
+import math
 import subprocess
 import sys
 from pathlib import Path
@@ -152,7 +153,8 @@ def test_gearbox_efficiency_above_one_is_impossible():
     assert "looks like" not in str(info.value)
     data["motors"]["stall_torque"] = "0.8 kgf*cm"
     spec = robot_from_dict(data, "bot.yaml")
-    assert efficiency(spec) == pytest.approx((0.8 * 0.0980665 / 1.2) / (6 / (250 * 0.10471975511965977)),
+    rpm = 2 * math.pi / 60  # rad/s per rpm, exact by definition
+    assert efficiency(spec) == pytest.approx((0.8 * 0.0980665 / 1.2) / (6 / (250 * rpm)),
                                              rel=1e-12)
 
 
