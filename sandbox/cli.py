@@ -227,7 +227,9 @@ def build(
     from .robot import load_robot
     from .urdf import robot_urdf
 
-    text = robot_urdf(load_robot(robot, parse_sets(set_)))
+    spec = load_robot(robot, parse_sets(set_))
+    _print_warnings(spec, robot)
+    text = robot_urdf(spec)
     if output is None:
         sys.stdout.write(text)
         return
@@ -525,6 +527,7 @@ def analyze(
     from .robot import load_robot
 
     spec = load_robot(robot, parse_sets(set_))
+    _print_warnings(spec, robot)
     result = analyse_robot(spec, q_diag=_floats(q, 4, "--q"), r=r, rate_hz=rate)
     if emit_config is not None:
         emit_config.write_text(config_yaml(result, controller), encoding="utf-8")
