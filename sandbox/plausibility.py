@@ -87,7 +87,7 @@ def _key(path: tuple) -> str:
 def _hint(data: Any, path: tuple, kind: str) -> str:
     """' (a bare number is SI: if you meant 200 g, write '200 g')' where it applies."""
     value = _bare(data, path)
-    if value is None or kind not in BARE_HINTS:
+    if value is None or kind not in BARE_HINTS or value > 1e7:  # no hobby unit fits 1e300
         return ""
     return f"; a bare number is SI: if you meant {BARE_HINTS[kind][2]}, write " \
            f"'{value:g} {BARE_HINTS[kind][1]}'"
