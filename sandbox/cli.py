@@ -94,19 +94,16 @@ RateOption = Annotated[float | None, typer.Option(
 
 
 def parse_sets(items: list[str] | None) -> dict[str, Any]:
-    """``key=value`` strings -> dict; values read as YAML scalars ("0.4", "35 mm", "[0, 0, 1]")."""
-    import yaml
+    """``key=value`` strings -> dict; values read as the files read them ("0.4", "35 mm",
+    "[0, 0, 1]", "1:48"); text YAML cannot read (e.g. '2020-13-45') is kept as text."""
+    from .yamlfile import parse_scalar
 
     out: dict[str, Any] = {}
     for item in items or []:
         key, sep, text = item.partition("=")
         if not sep or not key.strip():
             raise BadInput(f"--set {item!r}: expected KEY=VALUE, e.g. wheels.friction=0.4")
-        try:
-            value = yaml.safe_load(text)
-        except (yaml.YAMLError, ValueError, RecursionError):  # e.g. '2020-13-45': keep the text
-            value = text
-        out[key.strip()] = value
+        out[key.strip()] = parse_scalar(text)
     return out
 
 
@@ -130,10 +127,13 @@ def inspect(
     set_: RobotSetOption = None,
 ) -> None:
     """Derived figures of a robot: mass, centre of mass, inertia, motor constants, limits."""
+    from .plausibility import efficiency
     from .robot import figures_json, load_robot
 
     spec = load_robot(robot, parse_sets(set_))
     data = figures_json(spec)
+    data["gearbox_efficiency"] = efficiency(spec)
+    data["warnings"] = list(spec.warnings)
     if as_json:
         typer.echo(json.dumps(data, indent=2))
         return
@@ -158,6 +158,8 @@ def _inspect_text(spec, data: dict[str, Any]) -> str:
         ("motor resistance", fmt(f.resistance), "ohm"),
         ("torque constant (output shaft)", fmt(f.torque_constant), "N m/A"),
         ("back-EMF constant (output shaft)", fmt(f.back_emf_constant), "V s/rad"),
+        ("implied gearbox efficiency (torque / back-EMF constant)",
+         f"{100 * data['gearbox_efficiency']:.0f}", "%"),
         ("reflected rotor inertia at the wheel", fmt(f.reflected_inertia), "kg m^2"),
         ("stall torque per wheel at rated voltage", fmt(f.stall_torque_wheel), "N m"),
         ("battery nominal voltage", fmt(f.battery_voltage), "V"),
@@ -168,8 +170,29 @@ def _inspect_text(spec, data: dict[str, Any]) -> str:
     ]
     out = [table(rows, ("figure", "value", "unit")), "", "Description in force (SI units):"]
     flat = _flatten(data["description"])
-    out.append(table([(k, v) for k, v in flat], ("key", "value")))
+    out.append(table([(k, v, _unit_of(k)) for k, v in flat], ("key", "value", "unit")))
+    if data["warnings"]:
+        out += ["", "Warnings (the robot still runs; check these values):"]
+        out += [f"  {line}" for line in data["warnings"]]
     return "\n".join(out)
+
+
+def _unit_of(key: str) -> str:
+    """The SI unit of a flattened description key ('body.parts[0].size' -> 'm')."""
+    import re
+
+    from .robot import key_kind
+    from .units import KINDS
+
+    dotted = re.sub(r"\[(\d+)\]", r".\1", key)
+    kind = key_kind(dotted) or key_kind(dotted + ".0")
+    return KINDS[kind][0].replace("*", " ") if kind else ""
+
+
+def _print_warnings(spec, source: Path) -> None:
+    """Plausibility warnings on stderr, one line each; the command goes on."""
+    for line in spec.warnings:
+        typer.echo(f"warning: {source}: {line}", err=True)
 
 
 def _flatten(data: Any, prefix: str = "") -> list[tuple[str, str]]:
@@ -204,7 +227,9 @@ def build(
     from .robot import load_robot
     from .urdf import robot_urdf
 
-    text = robot_urdf(load_robot(robot, parse_sets(set_)))
+    spec = load_robot(robot, parse_sets(set_))
+    _print_warnings(spec, robot)
+    text = robot_urdf(spec)
     if output is None:
         sys.stdout.write(text)
         return
@@ -218,18 +243,15 @@ EXIT_INTERRUPTED = 130  # shell convention for Ctrl-C
 def _load_config_file(path: Path | None) -> dict[str, Any]:
     if path is None:
         return {}
-    import yaml
-
-    from .robot import parse_yaml
+    from .yamlfile import read_yaml_file
 
     if not path.is_file():
         raise BadInput(f"{path}: no such config file")
-    data = parse_yaml(path.read_text(encoding="utf-8"), str(path))
+    data = read_yaml_file(path)
     if data is None:
         return {}
     if not isinstance(data, dict):
         raise BadInput(f"{path}: a controller config must be a mapping of names to values")
-    del yaml
     return data
 
 
@@ -344,6 +366,7 @@ def _robot_and_settings(robot: Path, controller: str, sets: list[str] | None,
 
     robot_sets, config_sets = _split_sets(sets)
     spec = load_robot(robot, robot_sets)
+    _print_warnings(spec, robot)
     config = {**_load_config_file(config_file), **config_sets}
     return spec, _settings_from(controller, config, duration, tilt, seed, rate)
 
@@ -504,6 +527,7 @@ def analyze(
     from .robot import load_robot
 
     spec = load_robot(robot, parse_sets(set_))
+    _print_warnings(spec, robot)
     result = analyse_robot(spec, q_diag=_floats(q, 4, "--q"), r=r, rate_hz=rate)
     if emit_config is not None:
         emit_config.write_text(config_yaml(result, controller), encoding="utf-8")
@@ -571,12 +595,14 @@ def sweep(
     robot: RobotArg,
     controller: ControllerArg,
     vary: Annotated[list[str] | None, typer.Option(
-        "--vary", help="KEY=START:STOP:N (or KEY=A,B,C); any key --set takes, SI numbers. "
+        "--vary", help="KEY=START:STOP:N (or KEY=A,B,C); any key --set takes, SI numbers or unit "
+        "strings as --set reads them (wheels.radius=30mm,35mm). "
         "Several make a grid.")] = None,
     samples: Annotated[int, typer.Option(
         "--samples", help="Monte Carlo: robots drawn within the --spread tolerances.")] = 0,
     spread: Annotated[list[str] | None, typer.Option(
-        "--spread", help="KEY=±X% (relative) or KEY=±X (absolute), drawn uniformly.")] = None,
+        "--spread", help="KEY=±X% (relative) or KEY=±X (absolute: SI, or a unit string "
+        "such as ±2mm), drawn uniformly.")] = None,
     test: Annotated[str | None, typer.Option(
         "--test", help="A built-in test name or a test file (YAML).")] = None,
     duration: Annotated[float | None, typer.Option(

@@ -26,15 +26,20 @@ from .robot import (
     Time,
     _si,
     describe_error,
-    parse_yaml,
 )
 from .world import Ground, Patch, Rough, Step
+from .yamlfile import YamlFileError, read_yaml_file
 
 GRAVITY = 9.80665
 Impulse = Annotated[float, _si("impulse")]
 Force = Annotated[float, _si("force")]
 Speed = Annotated[float, _si("speed")]
 Angle = Annotated[float, _si("angle")]
+PositiveLength = Annotated[float, _si("length"), Field(gt=0, le=5)]
+# Beyond any robot upright serves (see DEVELOPERS.md, "Limits of a description").
+MAX_PAYLOAD = 500.0  # kg
+MAX_IMPULSE = 1000.0  # N·s
+MAX_FORCE = 10_000.0  # N
 
 
 class TestFileError(ValueError):
@@ -56,10 +61,10 @@ class _Section(BaseModel):
 class PushSpec(_Section):
     """A shove on the body: an impulse (N·s), or a force (N) held for a duration (s)."""
 
-    impulse: Impulse | None = Field(default=None, gt=0)
-    force: Force | None = Field(default=None, gt=0)
+    impulse: Impulse | None = Field(default=None, gt=0, le=MAX_IMPULSE)
+    force: Force | None = Field(default=None, gt=0, le=MAX_FORCE)
     duration: Time = Field(default=0.1, gt=0, le=10)
-    height: Length | None = None  # above the axle; default: near the top of the frame
+    height: Length | None = Field(default=None, gt=0, le=5)  # above the axle; default: the top
     direction: Literal["forward", "backward", "left", "right"] = "forward"
 
     @model_validator(mode="after")
@@ -70,14 +75,14 @@ class PushSpec(_Section):
 
 
 class PayloadSpec(_Section):
-    mass: Mass = Field(gt=0)
+    mass: Mass = Field(gt=0, le=MAX_PAYLOAD)
     at: tuple[Length, Length, Length] | None = None  # body frame; default: on top of the frame
-    size: tuple[Length, Length, Length] = (0.05, 0.05, 0.02)
+    size: tuple[PositiveLength, PositiveLength, PositiveLength] = (0.05, 0.05, 0.02)
 
 
 class SensorMiss(_Section):
     side: Literal["left", "right"]
-    counts: int = Field(gt=0)
+    counts: int = Field(gt=0, le=1_000_000)
 
 
 class SetpointSpec(_Section):
@@ -133,7 +138,7 @@ class StepSpec(_Section):
 class RoughSpec(_Section):
     amplitude: Length = Field(gt=0, le=0.2)
     wavelength: Length = Field(gt=0.01, le=10)
-    seed: int = 0
+    seed: int = Field(default=0, ge=0, le=2**32 - 1)  # numpy's seeds are non-negative
 
 
 class GroundSpec(_Section):
@@ -163,8 +168,8 @@ class Criteria(_Section):
 
 
 class TestFile(_Section):
-    name: str = Field(default="custom", min_length=1, pattern=r"^[A-Za-z0-9_.-]+$")
-    description: str = ""
+    name: str = Field(default="custom", min_length=1, max_length=64, pattern=r"^[A-Za-z0-9_.-]+$")
+    description: str = Field(default="", max_length=2000)
     duration: Time = Field(default=10.0, gt=0, le=3600)
     tilt: Angle = 0.0
     battery_charge: Fraction | None = Field(default=None, ge=0, le=1)
@@ -540,9 +545,9 @@ def load_test_file(path: Path) -> TestPlan:
     if not path.is_file():
         raise TestFileError(source, ["no such file"])
     try:
-        data = parse_yaml(path.read_text(encoding="utf-8"), source)
-    except ValueError as err:  # RobotFileError from the YAML reader: same wording
-        raise TestFileError(source, getattr(err, "problems", [str(err)])) from None
+        data = read_yaml_file(path, source)
+    except YamlFileError as err:
+        raise TestFileError(source, err.problems) from None
     if not isinstance(data, dict):
         raise TestFileError(source, ["a test file must be a mapping (name, duration, events...)"])
     data.setdefault("name", path.stem)

@@ -60,8 +60,9 @@ def default_run_dir(root: Path, robot: str, controller: str, test: str) -> Path:
     return path
 
 
-def _slug(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9_.]+", "-", text).strip("-") or "x"
+def _slug(text: str, limit: int = 40) -> str:
+    """A safe, bounded file-name part: letters, digits, '_' and '.', at most ``limit``."""
+    return re.sub(r"[^A-Za-z0-9_.]+", "-", text)[:limit].strip("-.") or "x"
 
 
 class TraceWriter:

@@ -15,11 +15,13 @@ from pathlib import Path
 from typing import Annotated, Any, Literal
 
 import numpy as np
-import yaml
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
 
 from .inertia import MassProperties, box_inertia, combine, cylinder_inertia_y
 from .units import STANDARD_GRAVITY, UnitError, to_si
+from .yamlfile import YamlFileError, parse_yaml_text, read_yaml_file
+
+MAX_NAME = 64  # characters in a robot's name (it becomes part of file and folder names)
 
 
 class RobotFileError(ValueError):
@@ -38,7 +40,32 @@ def _si(kind: str):
         except UnitError as err:
             raise ValueError(str(err)) from None
 
+    convert.unit_kind = kind  # type: ignore[attr-defined]  (read by key_kind)
     return BeforeValidator(convert)
+
+
+_RATIO = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*:\s*([0-9]*\.?[0-9]+)\s*$")
+
+
+def _gear_ratio(value: object) -> object:
+    """A gear ratio as a number (48) or as catalogues write it: '1:48' or '48:1' (both 48:
+    a gear motor reduces speed). YAML reads an unquoted 1:48 as this text too."""
+    if isinstance(value, str):
+        match = _RATIO.match(value)
+        if match:
+            low, high = sorted(float(g) for g in match.groups())
+            if low <= 0:
+                raise ValueError(f"{value!r}: both sides of a ratio must be above zero")
+            return high / low
+        try:
+            return float(value)
+        except ValueError:
+            raise ValueError(f"cannot read {value!r} as a gear ratio: write 48, or '1:48'") \
+                from None
+    return value
+
+
+GearRatio = Annotated[float, BeforeValidator(_gear_ratio)]
 
 
 Length = Annotated[float, _si("length")]
@@ -106,10 +133,10 @@ class Motors(Section):
     """Per-motor catalogue figures at the gearbox output shaft."""
 
     rated_voltage: Voltage = Field(default=6.0, gt=0)
-    no_load_speed: AngularSpeed = Field(default=to_si("250 rpm", "angular_speed"), gt=0)
-    stall_torque: Torque = Field(default=to_si("1.5 kgf*cm", "torque"), gt=0)
+    no_load_speed: AngularSpeed = Field(default=250 * 2 * math.pi / 60, gt=0)  # 250 rpm
+    stall_torque: Torque = Field(default=1.5 * STANDARD_GRAVITY / 100, gt=0)  # 1.5 kgf·cm
     stall_current: Current = Field(default=1.6, gt=0)
-    gear_ratio: float = Field(default=48.0, ge=1.0)
+    gear_ratio: GearRatio = Field(default=48.0, ge=1.0)
     rotor_inertia: Inertia = Field(default=1.0e-7, ge=0)  # at the motor shaft
     friction_torque: Torque = Field(default=0.005, ge=0)  # Coulomb, at the output shaft
 
@@ -127,14 +154,14 @@ class Battery(Section):
     cells: int = Field(default=6, ge=1, le=48)
     cell_voltage: Voltage = Field(default=1.2, gt=0, le=5.0)  # nominal, per cell
     cell_resistance: Resistance = Field(default=0.03, ge=0)
-    capacity: Charge = Field(default=to_si("2000 mAh", "charge"), gt=0)
+    capacity: Charge = Field(default=7200.0, gt=0)  # 2000 mAh
     charge: Fraction = Field(default=0.8, ge=0, le=1)  # state of charge at the start
 
 
 class Gyro(Section):
-    range: AngularSpeed = Field(default=to_si("250 deg/s", "angular_speed"), gt=0)
-    noise_density: GyroDensity = Field(default=to_si("0.005 deg/s/sqrt(Hz)", "gyro_density"), ge=0)
-    bias: AngularSpeed = Field(default=to_si("0.5 deg/s", "angular_speed"), ge=0)
+    range: AngularSpeed = Field(default=math.radians(250), gt=0)  # 250 deg/s
+    noise_density: GyroDensity = Field(default=math.radians(0.005), ge=0)  # deg/s/sqrt(Hz)
+    bias: AngularSpeed = Field(default=math.radians(0.5), ge=0)  # 0.5 deg/s
     bias_walk: GyroWalk = Field(default=0.0, ge=0)
     bits: int = Field(default=16, ge=4, le=32)
 
@@ -162,7 +189,8 @@ class Encoders(Section):
 class RobotSpec(Section):
     """A validated robot description, every value in SI."""
 
-    name: str = Field(default="robot", min_length=1, pattern=r"^[A-Za-z0-9_.-][A-Za-z0-9 _.-]*$")
+    name: str = Field(default="robot", min_length=1, max_length=MAX_NAME,
+                      pattern=r"^[A-Za-z0-9_.-][A-Za-z0-9 _.-]*$")
     body: Body
     wheels: Wheels
     motors: Motors = Motors()
@@ -203,6 +231,13 @@ class RobotSpec(Section):
     def figures(self) -> Figures:
         return derive(self)
 
+    @cached_property
+    def warnings(self) -> tuple[str, ...]:
+        """Plausibility warnings, one line each naming the key (the run goes on)."""
+        from .plausibility import plausibility_warnings
+
+        return tuple(plausibility_warnings(self, self.__dict__.get("_source_data")))
+
     def to_si_dict(self) -> dict[str, Any]:
         """The description with every value in SI, plain Python types (for run.yaml)."""
         return self.model_dump(mode="json")
@@ -218,27 +253,23 @@ def load_robot(path: str | Path, overrides: dict[str, Any] | None = None) -> Rob
     if not path.is_file():
         raise RobotFileError(source, ["no such file"])
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise RobotFileError(source, [f"cannot read the file: {err}"]) from None
-    data = parse_yaml(text, source)
+        data = read_yaml_file(path, source)
+    except YamlFileError as err:
+        raise RobotFileError(source, err.problems) from None
     if isinstance(data, dict) and "name" not in data:
         # The file's stem, cut to the characters a name may hold ('my bot (v2)' -> 'my bot -v2-').
-        data["name"] = re.sub(r"[^A-Za-z0-9 _.-]+", "-", path.stem).strip() or "robot"
+        stem = re.sub(r"[^A-Za-z0-9 _.-]+", "-", path.stem).strip()[:MAX_NAME].strip()
+        data["name"] = stem or "robot"
     return robot_from_dict(data, source, overrides)
 
 
 def parse_yaml(text: str, source: str) -> Any:
-    """YAML text to Python data; a syntax error names the line and column."""
+    """YAML text to Python data, within the bounds of :mod:`sandbox.yamlfile` (no aliases,
+    no duplicate keys, bounded sizes); a problem names the line and the key."""
     try:
-        return yaml.safe_load(text)
-    except yaml.YAMLError as err:
-        mark = getattr(err, "problem_mark", None)
-        where = f"line {mark.line + 1}, column {mark.column + 1}: " if mark else ""
-        problem = getattr(err, "problem", None) or str(err).splitlines()[0]
-        raise RobotFileError(source, [f"{where}YAML syntax error: {problem}"]) from None
-    except (ValueError, RecursionError) as err:  # a tag's value ('2020-13-45'), deep nesting
-        raise RobotFileError(source, [f"cannot read the YAML: {err}"]) from None
+        return parse_yaml_text(text, source)
+    except YamlFileError as err:
+        raise RobotFileError(source, err.problems) from None
 
 
 def robot_from_dict(
@@ -250,9 +281,55 @@ def robot_from_dict(
     if overrides:
         data = apply_overrides(data, overrides, source)
     try:
-        return RobotSpec.model_validate(data)
+        spec = RobotSpec.model_validate(data)
     except ValidationError as err:
         raise RobotFileError(source, [describe_error(e) for e in err.errors()]) from None
+    from .plausibility import plausibility_errors
+
+    problems = plausibility_errors(spec, data)
+    if problems:
+        raise RobotFileError(source, problems)
+    spec.__dict__["_source_data"] = data  # the values as written, for the warnings
+    return spec
+
+
+def key_kind(dotted: str) -> str | None:
+    """The unit kind ('length', 'mass', ...) of a dotted robot key such as
+    ``body.parts.0.mass`` or ``imu.at.2``; None for a key without a unit or no such key."""
+    annotation: Any = RobotSpec
+    metadata: tuple = ()
+    for part in dotted.split("."):
+        args = [a for a in getattr(annotation, "__args__", ()) if a is not type(None)]
+        if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+            field = annotation.model_fields.get(part)
+            if field is None:
+                return None
+            annotation, metadata = field.annotation, tuple(field.metadata)
+        elif args and part.isdigit():  # a list or tuple element
+            annotation = args[min(int(part), len(args) - 1)]
+            metadata = tuple(getattr(annotation, "__metadata__", ()))
+        else:
+            return None
+        while not getattr(annotation, "__metadata__", None) and len(
+                [a for a in getattr(annotation, "__args__", ()) if a is not type(None)]) == 1 \
+                and getattr(annotation, "__origin__", None) not in (list, tuple):
+            annotation = next(a for a in annotation.__args__ if a is not type(None))  # X | None
+    for item in (*metadata, *getattr(annotation, "__metadata__", ())):
+        kind = getattr(getattr(item, "func", None), "unit_kind", None)
+        if kind:
+            return kind
+    return None
+
+
+def value_to_si(key: str, value: object) -> float:
+    """A number or unit string for a dotted key, as ``--set`` reads it: robot keys by their
+    kind ('35 mm' for a length), controller ``config.`` keys in SI base units."""
+    from .units import any_to_si
+
+    if isinstance(value, str) and key.startswith("config."):
+        return any_to_si(value)
+    kind = None if key.startswith("config.") else key_kind(key)
+    return to_si(value, kind) if kind else any_to_si(value)
 
 
 def apply_overrides(data: dict, overrides: dict[str, Any], source: str) -> dict:

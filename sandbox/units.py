@@ -3,7 +3,15 @@
 A value may be a bare number (taken as SI already) or a string such as
 "35 mm", "200 rpm", "1.5 kgf*cm", "0.005 deg/s/sqrt(Hz)" or "2 g". Where an
 acceleration is expected a lone ``g`` means standard gravity (9.80665 m/s²),
-not grams.
+not grams. ``Nm``, ``N.m``, ``N m`` and ``N·m`` are newton-metres; ``kgfcm``,
+``kgf.cm`` and ``kgf cm`` are kilogram-force centimetres.
+
+Strings are checked before the unit library sees them: at most
+``MAX_UNIT_TEXT`` characters, a number of at most ``MAX_NUMBER_TEXT``
+characters, exponents only small plain numbers (``m/s^2``, ``sqrt(Hz)``), no
+decimal comma, no ``gr`` (grains, not grams). pint is imported and its registry
+built once, the first time a string with a unit is met: plain numbers never
+touch it.
 """
 
 from __future__ import annotations
@@ -11,10 +19,13 @@ from __future__ import annotations
 import math
 import re
 from functools import lru_cache
-
-import pint
+from typing import Any
 
 STANDARD_GRAVITY = 9.80665  # m/s², exact by definition (CGPM 1901)
+
+MAX_UNIT_TEXT = 64  # characters in one value with its unit ('0.005 deg/s/sqrt(Hz)' is 20)
+MAX_NUMBER_TEXT = 40  # characters in the number of a value (a double has 17 significant digits)
+MAX_EXPONENT = 4  # largest power a unit needs (m^2, s^-3, Hz^0.5)
 
 # Each kind of quantity the robot file uses: its SI unit and a plain name for errors.
 KINDS: dict[str, tuple[str, str]] = {
@@ -48,6 +59,18 @@ _ANGULAR_KINDS = {"angle", "angular_speed", "gyro_density", "gyro_walk"}
 _LONE_G = re.compile(r"(?<![A-Za-z_])g(?![A-Za-z_0-9])")
 _SQRT = re.compile(r"(?:sqrt|√)\s*\(([^()]*)\)")
 _SQRT_BARE = re.compile(r"√\s*([A-Za-z]+)")
+_PLAIN_NUMBER = re.compile(r"^[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$")
+_LEADING_NUMBER = re.compile(r"^\s*[-+]?[0-9.]*(?:[eE][-+]?[0-9]+)?")
+_DECIMAL_COMMA = re.compile(r"[0-9],[0-9]")
+_POWER = re.compile(r"(\*\*|\^)\s*(\(?)\s*([-+]?[0-9]*\.?[0-9]*)\s*(\)?)")
+_GRAINS = re.compile(r"(?<![A-Za-z_])gr(?![A-Za-z_])")
+_WORD = r"(?<![A-Za-z_])"
+_END = r"(?![A-Za-z_0-9])"
+# Spellings that mean one thing only, rewritten before pint reads them.
+_NEWTON_METRE = re.compile(_WORD + r"([mk]?)N\s*[.·-]?\s*m" + _END)
+_FORCE_LENGTH = re.compile(_WORD + r"(kgf|gf|ozf|lbf)\s*[.·-]?\s*(cm|mm|m|in|ft)" + _END)
+# A mass times a length where a torque is meant ('5 kg cm', 'kgcm', '5 oz in', 'ozin').
+_MASS_LENGTH = re.compile(_WORD + r"(kg|g|oz|lb)\s*[.·*x-]?\s*(cm|mm|m|in|ft)" + _END)
 
 
 class UnitError(ValueError):
@@ -55,8 +78,10 @@ class UnitError(ValueError):
 
 
 @lru_cache(maxsize=1)
-def registry() -> pint.UnitRegistry:
-    """The shared unit registry (built once; building it takes ~0.2 s)."""
+def registry() -> Any:
+    """The shared pint unit registry, built on first use (building it takes ~0.2 s)."""
+    import pint
+
     return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 
 
@@ -83,26 +108,103 @@ def to_si(value: object, kind: str) -> float:
     return number
 
 
-@lru_cache(maxsize=4096)
-def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
-    reg = registry()
-    if "," in text:  # pint drops commas: '1,5 mm' would silently read as 15 mm
-        raise UnitError(f"cannot read {text!r} as {example}: write decimals with a point, "
-                        "one value only")
-    source = _SQRT_BARE.sub(r"(\1)**0.5", _SQRT.sub(r"(\1)**0.5", text.strip()))
+def any_to_si(value: object) -> float:
+    """A number, or a unit string converted to SI base units ('5 deg' -> 0.0873, '35 mm' ->
+    0.035), for values whose kind is not known (controller config values)."""
+    if isinstance(value, bool):
+        raise UnitError(f"expected a number, got {value!r}")
+    if isinstance(value, (int, float)):
+        return to_si(value, "fraction")
+    if not isinstance(value, str):
+        raise UnitError(f"expected a number, got {value!r}")
+    text = check_unit_text(value, "a number or a value with a unit")
+    if _PLAIN_NUMBER.match(text):
+        return to_si(text, "fraction")
+    if not re.match(r"[-+]?\.?[0-9]", text):  # pint would read a lone 'a' as a year
+        raise UnitError(f"cannot read {value!r} as a number or a value with a unit")
+    try:
+        quantity = registry().Quantity(_rewrite(text, "a number"))
+        number = float(quantity.to_base_units().magnitude)
+    except UnitError:
+        raise
+    except Exception as err:
+        raise UnitError(f"cannot read {value!r} as a number or a value with a unit") from err
+    if not math.isfinite(number):
+        raise UnitError(f"expected a finite number, got {value!r}")
+    return number
+
+
+def check_unit_text(text: str, example: str) -> str:
+    """The stripped text, or UnitError when it is longer, or its number or powers larger,
+    than any value with a unit needs, or it uses a spelling that misleads."""
+    if len(text) > MAX_UNIT_TEXT:
+        raise UnitError(f"a value of {len(text)} characters: a number with its unit takes at "
+                        f"most {MAX_UNIT_TEXT} (expected {example})")
+    stripped = text.strip()
+    number = _LEADING_NUMBER.match(stripped)
+    if number and len(number.group(0).strip()) > MAX_NUMBER_TEXT:
+        raise UnitError(f"a number of {len(number.group(0).strip())} characters: at most "
+                        f"{MAX_NUMBER_TEXT} (expected {example})")
+    if _DECIMAL_COMMA.search(stripped):
+        fixed = re.sub(r"([0-9]),([0-9])", r"\1.\2", stripped)
+        raise UnitError(f"{text!r} has a decimal comma: write {fixed!r} (decimal point)")
+    if "," in stripped:  # pint drops commas: '1, 5 mm' would silently read as 15 mm
+        raise UnitError(f"{text!r} holds a comma: give one value, with a decimal point "
+                        f"(expected {example})")
+    if ":" in stripped:  # pint reads '1:2:3' as 6
+        raise UnitError(f"{text!r} holds a colon: give one value (expected {example})")
+    powers = list(_POWER.finditer(stripped))
+    for match in powers:
+        exponent, rest = match.group(3), stripped[match.end():].lstrip()
+        try:
+            size = abs(float(exponent))
+        except ValueError:
+            size = math.inf
+        if size > MAX_EXPONENT or rest.startswith(("**", "^")) or (match.group(2) and not
+                                                                   match.group(4)):
+            raise UnitError(f"{text!r}: a unit's power must be a plain number from "
+                            f"-{MAX_EXPONENT} to {MAX_EXPONENT} (as in m/s^2), expected "
+                            f"{example}")
+    if _GRAINS.search(stripped):
+        raise UnitError(f"{text!r}: gr is grains in pint; for grams write g")
+    return stripped
+
+
+def _rewrite(text: str, kind: str) -> str:
+    """Unambiguous spellings into pint's: 'Nm' -> 'N*m', 'kgfcm' -> 'kgf*cm', sqrt()."""
+    source = _NEWTON_METRE.sub(r"\1N*m", text)
+    source = _FORCE_LENGTH.sub(r"\1*\2", source)
+    source = _SQRT_BARE.sub(r"(\1)**0.5", _SQRT.sub(r"(\1)**0.5", source))
     if kind in _GRAVITY_KINDS:
         source = _LONE_G.sub("g0", source)
+    return source
+
+
+@lru_cache(maxsize=4096)
+def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
+    stripped = check_unit_text(text, example)
+    if _PLAIN_NUMBER.match(stripped):  # a number in a string: SI already, no pint needed
+        return float(stripped)
+    if kind == "torque":
+        wrong = _MASS_LENGTH.search(stripped)
+        if wrong:
+            mass, length = wrong.group(1), wrong.group(2)
+            fixed = (stripped[:wrong.start()] + f"{mass}f*{length}" + stripped[wrong.end():])
+            raise UnitError(f"{text!r} is a mass times a length; for a torque write {fixed!r}")
+    reg = registry()
     try:
-        quantity = reg.Quantity(source)
+        quantity = reg.Quantity(_rewrite(stripped, kind))
     except Exception as err:  # pint raises many types for unparsable text
         raise UnitError(f"cannot read {text!r} as {example}") from err
-    if not isinstance(quantity, pint.Quantity):  # the string held only a number
+    if not isinstance(quantity, reg.Quantity):  # the string held only a number
         return float(quantity)
     if str(quantity.units) == "dimensionless":  # no unit at all: SI already
         return float(quantity.magnitude)
+    from pint import DimensionalityError
+
     try:
         number = float(quantity.to(unit).magnitude)
-    except pint.DimensionalityError as err:
+    except DimensionalityError as err:
         raise UnitError(
             f"{text!r} is {_describe(quantity)}, expected {example}"
         ) from err
@@ -116,12 +218,14 @@ def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
     return number
 
 
-def _describe(quantity: pint.Quantity) -> str:
+def _describe(quantity: Any) -> str:
     dims = str(quantity.dimensionality)
     names = {
         "[length]": "a length",
         "[mass]": "a mass",
         "[time]": "a time",
+        "[mass] * [length]": "a mass times a length",
+        "[length] * [mass]": "a mass times a length",
         "dimensionless": "a plain number",
     }
     return names.get(dims, f"of dimension {dims}")

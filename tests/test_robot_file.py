@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import copy
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -182,6 +183,7 @@ def test_steepest_hold_tilt_is_a_right_angle_when_motors_can_hold_any_tilt():
     balance 2T = m_b g l sin θ holds at any tilt (statics) [derived]: 90°."""
     data = yaml.safe_load(HAND_WORKED_YAML)
     data["motors"]["stall_torque"] = "20 kgf*cm"
+    data["motors"]["stall_current"] = "9 A"  # a gearbox efficiency of 95 %, not above 100 %
     fig = robot_from_dict(data).figures
     assert 2 * fig.available_stall_torque > fig.body.mass * G_N * fig.com_height
     assert fig.steepest_hold_tilt == pytest.approx(math.pi / 2, abs=1e-15)
@@ -552,3 +554,81 @@ def test_deeply_nested_yaml_is_a_file_error():
     """Nesting deeper than the parser's recursion limit is reported, not a RecursionError."""
     with pytest.raises(RobotFileError):
         parse_yaml("[" * 1000 + "]" * 1000, "deep.yaml")
+
+
+# ------------------------------------------------------------------ fuzzing: duplicates,
+# aliases, bare numbers
+
+BLOCK_KEY_LINES = [i for i, line in enumerate(EXAMPLE_TEXT.splitlines())
+                   if re.match(r"^\s*[a-z_]+:", line) and line.count("{") == line.count("}")]
+FLOW_ITEMS = [m.span() for m in re.finditer(r"(?<=[{,] )[a-z_]+: [^,}\n\[]+(?=[,}])",
+                                            EXAMPLE_TEXT)]
+UNIT_VALUES = [m.span() for m in re.finditer(r"(?<=[:\[,] )(-?[0-9.]+(?:e-?[0-9]+)?) "
+                                             r"(mm|g|V|A|rpm|kgf\*cm|ohm|mAh|Hz|deg/s)(?=[,\]}\s])",
+                                             EXAMPLE_TEXT)]
+
+
+@FUZZ
+@given(st.sampled_from(BLOCK_KEY_LINES))
+def test_fuzz_duplicated_block_key_is_refused(line_number):
+    """Any key line given twice in a row (same mapping) is refused naming the key and both
+    lines; nothing is silently merged."""
+    lines = EXAMPLE_TEXT.splitlines()
+    text = "\n".join(lines[: line_number + 1] + [lines[line_number]] + lines[line_number + 1:])
+    key = lines[line_number].split(":")[0].strip()
+    with pytest.raises(RobotFileError) as info:
+        parse_yaml(text, "dup.yaml")
+    message = str(info.value)
+    assert "given twice" in message and key in message, message
+    assert f"line {line_number + 2}" in message, message
+
+
+@FUZZ
+@given(st.sampled_from(FLOW_ITEMS))
+def test_fuzz_duplicated_flow_key_is_refused(span):
+    """A key repeated inside a flow mapping ({radius: 21 mm, radius: 21 mm}) is refused."""
+    start, end = span
+    item = EXAMPLE_TEXT[start:end]
+    text = EXAMPLE_TEXT[:start] + item + ", " + EXAMPLE_TEXT[start:]
+    with pytest.raises(RobotFileError, match=f"{item.split(':')[0]}: given twice"):
+        parse_yaml(text, "dup.yaml")
+
+
+@FUZZ
+@given(st.sampled_from(BLOCK_KEY_LINES + [-1]), st.booleans(), st.text(
+    alphabet="abcxyz_0123", min_size=1, max_size=6))
+def test_fuzz_anchors_and_aliases_are_refused(line_number, use_alias, name):
+    """An anchor on any value (and an alias to it) is refused with one line naming it."""
+    lines = EXAMPLE_TEXT.splitlines()
+    if line_number < 0:
+        lines.append(f"extra: &{name} 1")
+    else:
+        key, _, rest = lines[line_number].partition(":")
+        lines[line_number] = f"{key}: &{name}{rest}" if rest.strip() else \
+            f"{key}: &{name}{rest}"
+    if use_alias:
+        lines.append(f"again: *{name}")
+    with pytest.raises(RobotFileError) as info:
+        load_robot_text("\n".join(lines) + "\n")
+    assert len(info.value.problems) == 1 and "anchors and aliases" in info.value.problems[0]
+
+
+def load_robot_text(text: str):
+    return robot_from_dict(parse_yaml(text, "fuzz.yaml"), "fuzz.yaml")
+
+
+@FUZZ
+@given(st.sets(st.sampled_from(UNIT_VALUES), min_size=1, max_size=6))
+def test_fuzz_bare_numbers(spans):
+    """Units dropped from any values (a bare number is SI): a RobotSpec whose warnings are
+    one line each naming a key, or a RobotFileError with one line per problem."""
+    text = EXAMPLE_TEXT
+    for start, end in sorted(spans, reverse=True):
+        text = text[:start] + text[start:end].split(" ")[0] + text[end:]
+    try:
+        spec = load_robot_text(text)
+    except RobotFileError as err:
+        assert err.problems and all(p and "\n" not in p for p in err.problems)
+    else:
+        assert all(isinstance(w, str) and "\n" not in w and ": " in w for w in spec.warnings)
+        assert np.isfinite(spec.figures.mass)

@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sandbox.units import KINDS, STANDARD_GRAVITY, UnitError, to_si
+from sandbox.units import KINDS, MAX_NUMBER_TEXT, STANDARD_GRAVITY, UnitError, to_si
 
 # Exact factors: SI Brochure (BIPM, 9th ed., 2019) and NIST SP 811 (2008), Appendix B [published].
 G_N = 9.80665  # m/s², standard acceleration of gravity, exact (3rd CGPM, 1901)
@@ -185,3 +185,92 @@ def test_random_text_is_a_finite_float_or_unit_error(text, kind):
         assert str(err), "empty error message"
     else:
         assert math.isfinite(value), f"{text!r} as {kind} gave {value}"
+
+
+# ------------------------------------------------------------------ bounded strings
+
+UNITISH = st.text(alphabet="0123456789 .e-+*^()/:,mgkNVAsHzrpd√", max_size=40)
+BOUNDED = settings(max_examples=200, deadline=2000, derandomize=True)
+
+
+@BOUNDED
+@given(UNITISH, st.sampled_from(sorted(KINDS)))
+def test_unit_like_text_is_a_finite_float_or_unit_error_quickly(text, kind):
+    """Text made of digits, operators and unit letters never hangs (2 s deadline per
+    example) and gives a finite float or a UnitError."""
+    try:
+        value = to_si(text, kind)
+    except UnitError as err:
+        assert str(err)
+    else:
+        assert math.isfinite(value)
+
+
+@BOUNDED
+@given(st.lists(st.integers(0, 99), min_size=3, max_size=6), st.sampled_from(["**", "^"]))
+def test_exponent_towers_refused_before_pint(numbers, power):
+    """'10**10**10 mm' and the like are refused by the text check (pint would try to
+    compute them)."""
+    text = power.join(str(n) for n in numbers) + " mm"
+    with pytest.raises(UnitError, match="power"):
+        to_si(text, "length")
+
+
+@BOUNDED
+@given(st.integers(MAX_NUMBER_TEXT + 1, 200_000))
+def test_long_numbers_refused(digits):
+    """A number written with more characters than any double needs is refused at once."""
+    with pytest.raises(UnitError, match="at most"):
+        to_si("9" * digits + " mm", "length")
+
+
+@pytest.mark.parametrize(("text", "kind", "expected"), [
+    ("0.078 Nm", "torque", 0.078), ("0.078 N.m", "torque", 0.078),
+    ("0.078 N m", "torque", 0.078), ("0.078 N·m", "torque", 0.078),
+    ("78 mNm", "torque", 0.078), ("2 kgfcm", "torque", 2 * KGF * 0.01),
+    ("2 kgf.cm", "torque", 2 * KGF * 0.01), ("2 kgf cm", "torque", 2 * KGF * 0.01),
+    ("10 ozf*in", "torque", 10 * 0.028349523125 * G_N * 0.0254),
+])
+def test_torque_spellings(text, kind, expected):
+    """Unambiguous torque spellings: N·m, and kgf·cm = 9.80665e-2 N·m, ozf·in with the
+    avoirdupois ounce 0.028349523125 kg and the inch 0.0254 m (NIST SP 811, B.8)
+    [published]."""
+    assert to_si(text, kind) == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize(("text", "message"), [
+    ("5 kg cm", "'5 kg cm' is a mass times a length; for a torque write '5 kgf*cm'"),
+    ("5 kgcm", "for a torque write '5 kgf*cm'"),
+    ("5 kg*cm", "for a torque write '5 kgf*cm'"),
+    ("5 g cm", "for a torque write '5 gf*cm'"),
+    ("5 oz in", "for a torque write '5 ozf*in'"),
+    ("5 ozin", "for a torque write '5 ozf*in'"),
+])
+def test_mass_times_length_refused_for_a_torque(text, message):
+    with pytest.raises(UnitError) as info:
+        to_si(text, "torque")
+    assert message in str(info.value)
+
+
+def test_grains_and_commas_and_colons_get_their_own_messages():
+    with pytest.raises(UnitError, match="gr is grains in pint; for grams write g"):
+        to_si("200 gr", "mass")
+    assert to_si("200 grain", "mass") == pytest.approx(200 * 64.79891e-6, rel=1e-12)  # NIST
+    with pytest.raises(UnitError, match="decimal comma: write '32.5 mm'"):
+        to_si("32,5 mm", "length")
+    with pytest.raises(UnitError, match="colon"):
+        to_si("1:2:3", "fraction")
+
+
+def test_plain_numbers_never_import_pint():
+    """to_si on numbers and numeric strings does not need the unit registry (issue: pint
+    is built only when a unit string is met)."""
+    import subprocess
+    import sys
+
+    code = ("import sys; from sandbox.units import to_si; "
+            "assert to_si('0.25', 'length') == 0.25 and to_si(3, 'mass') == 3.0; "
+            "assert 'pint' not in sys.modules")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=60)
+    assert done.returncode == 0, done.stderr

@@ -93,12 +93,19 @@ def check_key(key: str, option: str) -> str:
     return key
 
 
-def _number(text: str, option: str, whole: str) -> float:
+def _number(text: str, option: str, whole: str, key: str = "") -> float:
+    """A number (SI), or a unit string read for ``key`` as --set reads it ('35 mm')."""
     try:
         value = float(text.strip())
     except ValueError:
-        raise SweepError(f"{option} {whole!r}: {text.strip()!r} is not a number "
-                         "(give plain numbers in SI units)") from None
+        from ..robot import value_to_si
+        from ..units import UnitError
+
+        try:
+            value = value_to_si(key, text.strip())
+        except UnitError as err:
+            raise SweepError(f"{option} {whole!r}: {text.strip()!r} is not a number in SI or "
+                             f"a value with a unit as --set takes ({err})") from None
     if not math.isfinite(value):
         raise SweepError(f"{option} {whole!r}: values must be finite")
     return value
@@ -118,8 +125,8 @@ def parse_vary(text: str) -> Axis:
     key = check_key(key, "--vary")
     parts = spec.split(":")
     if len(parts) == 3:
-        start = _number(parts[0], "--vary", text)
-        stop = _number(parts[1], "--vary", text)
+        start = _number(parts[0], "--vary", text, key)
+        stop = _number(parts[1], "--vary", text, key)
         try:
             count = int(parts[2].strip())
         except ValueError:
@@ -129,13 +136,14 @@ def parse_vary(text: str) -> Axis:
                              f"{MAX_AXIS_POINTS}, got {parts[2].strip()!r}")
         values = tuple(_clean(v) for v in np.linspace(start, stop, count))
     elif len(parts) == 1 and spec.strip():
-        values = tuple(_number(p, "--vary", text) for p in spec.split(","))
+        values = tuple(_number(p, "--vary", text, key) for p in spec.split(","))
     else:
         raise SweepError(f"--vary {text!r}: expected KEY=START:STOP:N or KEY=A,B,C")
     return Axis(key, values)
 
 
-_SPREAD = re.compile(r"^(?:±|\+-|\+/-)?\s*([0-9.]+(?:[eE][+-]?[0-9]+)?)\s*(%?)$")
+_SPREAD = re.compile(r"^(?:±|\+-|\+/-)?\s*([0-9.]+(?:[eE][+-]?[0-9]+)?(?:\s*[^\s%0-9.][^%]*)?)"
+                     r"\s*(%?)$")  # a number, optionally with a unit ('±2 mm'), or X%
 
 
 def parse_spread(text: str) -> Spread:
@@ -151,8 +159,10 @@ def parse_spread(text: str) -> Spread:
     match = _SPREAD.match(spec.strip())
     if match is None:
         raise SweepError(f"--spread {text!r}: expected ±X% (relative) or ±X (absolute, SI)")
-    amount = _number(match.group(1), "--spread", text)
     relative = bool(match.group(2))
+    if relative and not re.fullmatch(r"[0-9.eE+-]+", match.group(1).strip()):
+        raise SweepError(f"--spread {text!r}: a relative spread is a plain percentage (±5%)")
+    amount = _number(match.group(1), "--spread", text, key)
     if relative:
         if amount >= 100.0:
             raise SweepError(f"--spread {text!r}: a relative spread must be below ±100%")

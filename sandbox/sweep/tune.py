@@ -421,16 +421,18 @@ def tune_command(spec: RobotSpec, settings: RunSettings, *, gains: Sequence[str]
     seed, rate...). Default folder: ``runs/tune-<robot>-<controller>-<tests>-<time>/``.
     """
     from ..record import default_run_dir
+    from ..robot import value_to_si
 
     start_values: dict[str, float] = {}
     for item in start:
         key, sep, text = item.partition("=")
         try:
-            start_values[key.strip()] = float(text)
+            start_values[key.strip()] = value_to_si(key.strip(), text.strip())  # as --set
         except ValueError:
             sep = ""
         if not sep or not key.strip():
-            raise SweepError(f"--start {item!r}: expected KEY=NUMBER, e.g. config.kp=8")
+            raise SweepError(f"--start {item!r}: expected KEY=NUMBER (or a value with a unit, "
+                             "SI base units), e.g. config.kp=8")
     folder = out or default_run_dir(runs_root, f"tune-{spec.name}",
                                     controller_label(settings.controller), "+".join(tests))
     return tune(spec, settings.controller, gains=gains, tests=tests, start=start_values,
