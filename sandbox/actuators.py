@@ -116,19 +116,26 @@ def coulomb_friction(drive_torque: float, rate: float, friction_torque: float,
     return max(-friction_torque, min(friction_torque, hold))
 
 
-def karnopp_friction(drive_torque: float, rate: float, kinetic: float, static: float,
-                     rest_rate: float) -> float:
+def karnopp_friction(drive_torque: float, rest_drive_torque: float, rate: float,
+                     kinetic: float, static: float, rest_rate: float) -> float:
     """Stick-slip friction torque (N·m) to add to a drive torque (Karnopp, J. Dyn. Sys. Meas.
     Control 107(1), 1985).
 
-    Outside the band |rate| <= rest_rate the wheel slips: kinetic friction against the motion.
-    Inside it the wheel sticks: friction cancels the drive torque up to ``static`` (the
-    breakaway torque), and a term proportional to the rate brings a residual drift to rest.
-    With static == kinetic this is :func:`coulomb_friction`.
+    ``drive_torque`` is the motor's torque now, ``rest_drive_torque`` the torque it would
+    give with the wheel at rest (no back-EMF): the applied torque of Karnopp's test.
+    Outside the band |rate| <= rest_rate the wheel slips: kinetic friction against the
+    motion. Inside it the wheel is at rest: it sticks while |rest_drive_torque| <= static,
+    friction cancelling the drive (and a term proportional to the rate bringing a residual
+    drift to rest, as in :func:`coulomb_friction`); past the breakaway torque it slips at
+    once, kinetic friction against the applied torque.
     """
     if rate > rest_rate:
         return -kinetic
     if rate < -rest_rate:
+        return kinetic
+    if rest_drive_torque > static:
+        return -kinetic
+    if rest_drive_torque < -static:
         return kinetic
     hold = -drive_torque - static * rate / rest_rate
     return max(-static, min(static, hold))
@@ -322,12 +329,14 @@ class DriveTrain:
                                            (rate_left, rate_right),
                                            (self.motor_left, self.motor_right), self._side_bands):
             if duty == 0.0 and not self._brake_when_off:
-                current = 0.0
+                current = rest_current = 0.0
             else:
                 current = (duty * supply - motor.back_emf_constant * rate) / motor.resistance
+                rest_current = duty * supply / motor.resistance
             drive = motor.torque_constant * current
-            torques.append(drive + karnopp_friction(drive, rate, motor.friction_torque,
-                                                    motor.breakaway_torque, band))
+            torques.append(drive + karnopp_friction(
+                drive, motor.torque_constant * rest_current, rate, motor.friction_torque,
+                motor.breakaway_torque, band))
             currents.append(current)
         self._current_left, self._current_right = currents
         self._draw(self._duty_left * currents[0] + self._duty_right * currents[1], dt)
