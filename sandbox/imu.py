@@ -249,6 +249,7 @@ class Imu:
             for section in (gyro, accel))
         self.filtering = any(f is not None for f in self._filters)
         self._fed: tuple[Vector3, Vector3] | None = None
+        self._fresh = False  # fed since the last read
 
     def _turned(self, true_rate: Vector3, true_force: Vector3) -> tuple[Vector3, Vector3]:
         """The true vectors in the board's axes, scale errors applied."""
@@ -271,6 +272,7 @@ class Imu:
         if accel_filter is not None:
             force = accel_filter(force)
         self._fed = (rate, force)
+        self._fresh = True
         return self._fed
 
     def _bias(self) -> list[float]:
@@ -310,10 +312,12 @@ class Imu:
         previous call; the bias walk advances by that many samples. With 0 no
         new sample exists and the previous reading is returned again.
 
-        With a filter (``filtering``) the true values reported are those of the
-        last :meth:`feed` (the arguments feed the filter only if nothing has
-        been fed yet); with a mounting rotation or scale error they are turned
-        and scaled first.
+        With a filter (``filtering``) the values reported are those of the last
+        :meth:`feed` (feed the samples in time order, up to the one read). If
+        nothing was fed since the previous read, the arguments are fed
+        ``samples_elapsed`` times (at least once): the truth held over the
+        samples, for loops that do not feed every sample. With a mounting
+        rotation or scale error the values are turned and scaled first.
         """
         if samples_elapsed == 1:
             walk_scale = 1.0
@@ -328,8 +332,10 @@ class Imu:
         if samples_elapsed:
             self._usual_scale = walk_scale
         if self.filtering:
-            if self._fed is None:
-                self.feed(true_rate, true_specific_force)
+            if not self._fresh:  # a loop that does not feed: hold this truth over the samples
+                for _ in range(max(samples_elapsed, 1)):
+                    self.feed(true_rate, true_specific_force)
+            self._fresh = False
             true_rate, true_specific_force = self._fed
         elif self._turn is not None:
             true_rate, true_specific_force = self._turned(true_rate, true_specific_force)

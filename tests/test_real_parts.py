@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -541,3 +542,36 @@ def test_fuzzed_side_overrides_give_a_robot_or_a_plain_error(side, which):
         assert str(err)
     else:
         assert spec.motor_side(which).stall_torque > 0
+
+
+def test_a_loop_that_does_not_feed_holds_the_truth_over_the_samples():
+    """Reading every 5th sample without feeding equals feeding the tick's truth 5 times: a
+    zero-order hold of the input at the sample rate (definition of the fallback)."""
+    spec = quiet_imu_spec(gyro={"bandwidth": 30.0})
+    fed, held = Imu(spec, seed=1), Imu(spec, seed=1)
+    for k in range(40):
+        truth = (0.0, math.sin(0.3 * k), 0.0)
+        for _ in range(5):
+            fed.feed(truth, (0.0, 0.0, G))
+        assert held.read(truth, (0.0, 0.0, G), 5) == fed.read(truth, (0.0, 0.0, G), 5)
+
+
+def test_a_run_with_real_parts_records_them(tmp_path):
+    """A short run of a robot with every new key completes and writes them to robot.yaml and
+    run.yaml, which load back to the same robot (DESIGN.md run folder)."""
+    pytest.importorskip("pybullet")
+    import yaml
+
+    from sandbox.runner import RunSettings
+    from sandbox.session import run_once
+
+    spec = robot_from_dict({"name": "real", **REAL})
+    controller = str(Path(__file__).resolve().parents[1] / "controllers" / "cascade.py")
+    settings = RunSettings(controller=controller, duration=0.3, seed=2)
+    result = run_once(spec, settings, folder=tmp_path / "run", duration_given=True, plots=False)
+    assert result.status in ("completed", "fell")
+    saved = yaml.safe_load((tmp_path / "run" / "robot.yaml").read_text())
+    assert robot_from_dict(saved) == spec
+    recorded = yaml.safe_load((tmp_path / "run" / "run.yaml").read_text())["robot"]
+    assert recorded["motors"]["static_friction_torque"] == 0.008
+    assert recorded["imu"]["gyro"]["bandwidth"] == 42.0
