@@ -41,6 +41,7 @@ class MotorConstants:
     torque_constant: float  # N·m/A
     back_emf_constant: float  # V·s/rad
     friction_torque: float  # N·m, Coulomb friction
+    static_friction_torque: float | None = None  # N·m, breakaway; None: friction_torque
 
     @classmethod
     def from_spec(cls, motors: Any) -> MotorConstants:
@@ -50,7 +51,14 @@ class MotorConstants:
             torque_constant=motors.stall_torque / motors.stall_current,
             back_emf_constant=motors.rated_voltage / motors.no_load_speed,
             friction_torque=motors.friction_torque,
+            static_friction_torque=getattr(motors, "static_friction_torque", None),
         )
+
+    @property
+    def breakaway_torque(self) -> float:
+        """Static friction (N·m): the drive torque a wheel at rest needs to start turning."""
+        static = self.static_friction_torque
+        return self.friction_torque if static is None else static
 
 
 def quantise_duty(duty: float, pwm_bits: int, deadband: float) -> float:
@@ -108,6 +116,31 @@ def coulomb_friction(drive_torque: float, rate: float, friction_torque: float,
     return max(-friction_torque, min(friction_torque, hold))
 
 
+def karnopp_friction(drive_torque: float, rest_drive_torque: float, rate: float,
+                     kinetic: float, static: float, rest_rate: float) -> float:
+    """Stick-slip friction torque (N·m) to add to a drive torque (Karnopp, J. Dyn. Sys. Meas.
+    Control 107(1), 1985).
+
+    ``drive_torque`` is the motor's torque now, ``rest_drive_torque`` the torque it would
+    give with the wheel at rest (no back-EMF): the applied torque of Karnopp's test.
+    Outside the band |rate| <= rest_rate the wheel slips: kinetic friction against the
+    motion. Inside it the wheel is at rest: it sticks while |rest_drive_torque| <= static,
+    friction cancelling the drive (and a term proportional to the rate bringing a residual
+    drift to rest, as in :func:`coulomb_friction`); past the breakaway torque it slips at
+    once, kinetic friction against the applied torque.
+    """
+    if rate > rest_rate:
+        return -kinetic
+    if rate < -rest_rate:
+        return kinetic
+    if rest_drive_torque > static:
+        return -kinetic
+    if rest_drive_torque < -static:
+        return kinetic
+    hold = -drive_torque - static * rate / rest_rate
+    return max(-static, min(static, hold))
+
+
 class DriveTrain:
     """Battery, H-bridge and the two wheel motors of one robot, stepped with the physics.
 
@@ -117,12 +150,23 @@ class DriveTrain:
     rest_rate (rad/s): wheel rates below it count as at rest for Coulomb friction. By default
     it is 2·friction·dt / J, J = wheel plus reflected rotor inertia about the axle: the band
     friction could clear in two steps, so the in-band term never makes the wheel chatter.
+
+    Real parts: each side has its own motor constants (``spec.motor_side``), and a motor
+    with ``static_friction_torque`` sticks and slips (:func:`karnopp_friction`, band
+    2·static·dt / J). Such a drive steps through ``_step_sides``; two alike motors without
+    static friction keep the written-out ``step`` below.
     """
 
     def __init__(self, spec: Any, *, rest_rate: float | None = None):
         if rest_rate is not None and not rest_rate > 0:
             raise ValueError(f"rest_rate must be positive (rad/s), got {rest_rate!r}")
-        self.motor = MotorConstants.from_spec(spec.motors)
+        side_spec = getattr(spec, "motor_side", None)
+        if side_spec is None:  # a bare description without per-side figures
+            self.motor_left = self.motor_right = MotorConstants.from_spec(spec.motors)
+        else:
+            self.motor_left = MotorConstants.from_spec(side_spec("left"))
+            self.motor_right = MotorConstants.from_spec(side_spec("right"))
+        self.motor = self.motor_left  # both motors, when they are alike
         driver, battery = spec.driver, spec.battery
         self._pwm_bits = driver.pwm_bits
         self._pwm_levels = (1 << driver.pwm_bits) - 1
@@ -137,6 +181,15 @@ class DriveTrain:
         self._capacity = battery.capacity
         figures = spec.figures
         self._wheel_side_inertia = figures.wheel_inertia_axle + figures.reflected_inertia
+        sides = (getattr(figures, "left", None), getattr(figures, "right", None))
+        self._side_inertia = tuple(
+            self._wheel_side_inertia if f is None else f.wheel_inertia_axle + f.reflected_inertia
+            for f in sides)
+        self._side_bands = (MIN_REST_RATE, MIN_REST_RATE)
+        if (self.motor_left != self.motor_right
+                or self.motor_left.static_friction_torque is not None
+                or self.motor_right.static_friction_torque is not None):
+            self.step = self._step_sides  # type: ignore[method-assign]
         self._fixed_rest_rate = rest_rate
         self._rest_rate = MIN_REST_RATE
         self._rest_rate_dt = math.nan  # the step the band was worked out for
@@ -263,7 +316,40 @@ class DriveTrain:
             self._terminal_voltage = self._terminal(charge, battery_current)
         return torque_left, torque_right
 
+    def _step_sides(self, rate_left: float, rate_right: float, dt: float) -> tuple[float, float]:
+        """``step`` for two motors that differ or that stick and slip: the same model, each
+        side with its own constants and Karnopp friction."""
+        if dt != self._rest_rate_dt:
+            self._set_rest_rate(dt)
+        supply = self._terminal_voltage - self._voltage_drop
+        if supply < 0.0:
+            supply = 0.0
+        torques, currents = [], []
+        for duty, rate, motor, band in zip((self._duty_left, self._duty_right),
+                                           (rate_left, rate_right),
+                                           (self.motor_left, self.motor_right), self._side_bands):
+            if duty == 0.0 and not self._brake_when_off:
+                current = rest_current = 0.0
+            else:
+                current = (duty * supply - motor.back_emf_constant * rate) / motor.resistance
+                rest_current = duty * supply / motor.resistance
+            drive = motor.torque_constant * current
+            torques.append(drive + karnopp_friction(
+                drive, motor.torque_constant * rest_current, rate, motor.friction_torque,
+                motor.breakaway_torque, band))
+            currents.append(current)
+        self._current_left, self._current_right = currents
+        self._draw(self._duty_left * currents[0] + self._duty_right * currents[1], dt)
+        return torques[0], torques[1]
+
     # ----------------------------------------------------------------- internals
+
+    def _draw(self, battery_current: float, dt: float) -> None:
+        """Take ``battery_current`` (A) from the battery for dt seconds (as ``step`` does)."""
+        self._battery_current = battery_current
+        charge = self._charge - battery_current * dt / self._capacity
+        self._charge = 0.0 if charge < 0.0 else 1.0 if charge > 1.0 else charge
+        self._terminal_voltage = self._terminal(self._charge, battery_current)
 
     def _with_friction(self, drive: float, rate: float) -> float:
         """Wheel torque (N·m): the motor's ``drive`` torque with Coulomb friction added.
@@ -296,4 +382,10 @@ class DriveTrain:
         else:
             band = 2.0 * self.motor.friction_torque * dt / self._wheel_side_inertia
             self._rest_rate = max(band, MIN_REST_RATE)
+        # each side's band: the friction that holds it at rest (static, if it has one)
+        # could clear it in two steps
+        self._side_bands = tuple(
+            self._fixed_rest_rate if self._fixed_rest_rate is not None
+            else max(2.0 * motor.breakaway_torque * dt / inertia, MIN_REST_RATE)
+            for motor, inertia in zip((self.motor_left, self.motor_right), self._side_inertia))
         self._rest_rate_dt = dt

@@ -168,6 +168,7 @@ def _inspect_text(spec, data: dict[str, Any]) -> str:
         ("top speed (no load)", fmt(f.top_speed), "m/s"),
         ("steepest tilt both motors can hold", fmt(math.degrees(f.steepest_hold_tilt)), "deg"),
     ]
+    rows += _real_part_rows(f)
     out = [table(rows, ("figure", "value", "unit")), "", "Description in force (SI units):"]
     flat = _flatten(data["description"])
     out.append(table([(k, v, _unit_of(k)) for k, v in flat], ("key", "value", "unit")))
@@ -193,6 +194,32 @@ def _print_warnings(spec, source: Path) -> None:
     """Plausibility warnings on stderr, one line each; the command goes on."""
     for line in spec.warnings:
         typer.echo(f"warning: {source}: {line}", err=True)
+def _real_part_rows(f) -> list[tuple[str, str, str]]:
+    """Rows for the imperfect parts in force: measured body figures, the figures of each
+    side where the two differ, the IMU filters' group delay."""
+    rows = []
+    if f.measured:
+        rows.append(("body figures from body.measured", ", ".join(f.measured), ""))
+    if f.sides_differ:
+        shown = (("stall torque at rated voltage", "stall_torque_wheel", "N m"),
+                 ("stall torque from the battery", "available_stall_torque", "N m"),
+                 ("motor resistance", "resistance", "ohm"),
+                 ("torque constant", "torque_constant", "N m/A"),
+                 ("back-EMF constant", "back_emf_constant", "V s/rad"),
+                 ("reflected rotor inertia", "reflected_inertia", "kg m^2"),
+                 ("friction torque (kinetic)", "friction_torque", "N m"),
+                 ("static friction torque", "static_friction_torque", "N m"),
+                 ("wheel radius", "wheel_radius", "m"),
+                 ("wheel inertia about its axle", "wheel_inertia_axle", "kg m^2"),
+                 ("top speed (no load)", "top_speed", "m/s"))
+        for label, name, unit in shown:
+            left, right = getattr(f.left, name), getattr(f.right, name)
+            if left != right:
+                rows.append((f"{label}, left / right", f"{fmt(left)} / {fmt(right)}", unit))
+    for label, delay in (("gyro", f.gyro_group_delay), ("accelerometer", f.accel_group_delay)):
+        if delay is not None:
+            rows.append((f"{label} filter group delay (low frequency)", fmt(delay * 1000), "ms"))
+    return rows
 
 
 def _flatten(data: Any, prefix: str = "") -> list[tuple[str, str]]:
@@ -735,3 +762,5 @@ def margins(
                    "with one seed. The real robot has imperfections no file lists: keep some "
                    "of each margin in hand.")
     raise typer.Exit(EXIT_OK if result.baseline_passed else EXIT_FELL)
+if __name__ == "__main__":
+    app()

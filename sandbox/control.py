@@ -18,6 +18,7 @@ import numbers
 import os
 import sys
 import traceback
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -160,8 +161,9 @@ def _log_value(name: str, value: Any) -> float:
 class RobotFacts:
     """Static facts a controller may read (its ``robot`` argument), SI units.
 
-    wheel_radius (m), track (m, between wheel centres), counts_per_rev (encoder
-    counts per wheel turn relative to the body), mass (kg, whole robot),
+    wheel_radius (m), track (m, between wheel centres), counts_per_wheel_rev (encoder
+    counts of one wheel turn relative to the body, whether the encoder sits on the motor
+    shaft or the wheel's; ``counts_per_rev`` is its old name, deprecated), mass (kg, whole robot),
     com_height (m, body centre of mass from the axle), battery_voltage (V,
     nominal), drive_voltage (V, nominal battery less the driver's drop),
     max_wheel_speed (rad/s, no-load at drive_voltage), imu_at (m, body frame),
@@ -172,7 +174,7 @@ class RobotFacts:
 
     wheel_radius: float
     track: float
-    counts_per_rev: float
+    counts_per_wheel_rev: float
     mass: float
     com_height: float
     battery_voltage: float
@@ -184,6 +186,13 @@ class RobotFacts:
     pitch_inertia: float
     body_mass: float = 0.0
     stall_torque: float = 0.0
+
+    @property
+    def counts_per_rev(self) -> float:
+        """Deprecated name of :attr:`counts_per_wheel_rev` (kept for one release)."""
+        warnings.warn("robot.counts_per_rev is deprecated: read robot.counts_per_wheel_rev "
+                      "(counts of one wheel turn) instead", DeprecationWarning, stacklevel=2)
+        return self.counts_per_wheel_rev
 
     @classmethod
     def from_spec(cls, spec: Any, rate_hz: float, physics_dt: float) -> RobotFacts:
@@ -197,7 +206,10 @@ class RobotFacts:
         return cls(
             wheel_radius=float(spec.wheels.radius),
             track=float(spec.wheels.track),
-            counts_per_rev=float(spec.encoders.counts_per_rev * spec.motors.gear_ratio),
+            counts_per_wheel_rev=float(
+                spec.encoders.counts_per_rev
+                * (1.0 if getattr(spec.encoders, "shaft", "motor") == "wheel"
+                   else spec.motors.gear_ratio)),
             mass=float(fig.mass),
             com_height=float(fig.com_height),
             battery_voltage=float(fig.battery_voltage),
@@ -631,7 +643,7 @@ class WheelOdometry:
 
     def __init__(self, robot: RobotFacts, speed_filter: float = 0.05):
         self.radius = robot.wheel_radius
-        self.counts_per_rev = robot.counts_per_rev
+        self.counts_per_rev = robot.counts_per_wheel_rev
         self.speed_filter = float(speed_filter)
         self.reset()
 

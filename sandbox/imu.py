@@ -24,8 +24,21 @@ the readings. Each axis of each sensor gets, in this order:
 
 The sensor samples at ``rate``; the controller sees the latest sample. One
 :meth:`Imu.read` call returns one sample and advances the bias walk by the
-number of samples elapsed since the previous call. There is no anti-alias
-filter: white noise is not averaged over the skipped samples.
+number of samples elapsed since the previous call. White noise is not
+averaged over the skipped samples.
+
+Real parts (optional keys of the ``imu`` section; absent, the readings are
+the ideal ones above, bit for bit):
+
+- **Mounting and scale**: the board's axes are the body's turned by
+  ``rotation`` (roll, pitch, yaw: R = Rz(yaw)·Ry(pitch)·Rx(roll)); a reading
+  is (1 + ``scale_error``)·Rᵀ·v of the true body-axis vector v, before noise.
+- **The sensor's own digital low-pass** (``gyro.bandwidth``,
+  ``accel.bandwidth``, ``filter_order``): a Butterworth filter designed once
+  with ``scipy.signal.butter(order, f_c, fs=rate)`` and run at the sample
+  rate by :meth:`Imu.feed`, which the loop calls at every sample. It filters
+  the true (turned, scaled) values; bias, noise and quantisation come after,
+  since a sensor's noise density is that of its output.
 """
 
 from __future__ import annotations
@@ -112,6 +125,62 @@ class _OutputWord:
         return cls(-half_codes * noise.lsb, (half_codes - 1) * noise.lsb, noise.lsb)
 
 
+def mount_rotation(roll: float, pitch: float, yaw: float) -> np.ndarray:
+    """The board's axes in body coordinates (3×3, columns), R = Rz(yaw)·Ry(pitch)·Rx(roll);
+    angles in rad. A body-axis vector v reads Rᵀ·v in the board's axes."""
+    cr, sr = math.cos(roll), math.sin(roll)
+    cp, sp = math.cos(pitch), math.sin(pitch)
+    cy, sy = math.cos(yaw), math.sin(yaw)
+    rx = np.array([[1.0, 0.0, 0.0], [0.0, cr, -sr], [0.0, sr, cr]])
+    ry = np.array([[cp, 0.0, sp], [0.0, 1.0, 0.0], [-sp, 0.0, cp]])
+    rz = np.array([[cy, -sy, 0.0], [sy, cy, 0.0], [0.0, 0.0, 1.0]])
+    return rz @ ry @ rx
+
+
+class LowPass:
+    """A Butterworth low-pass on three axes, one sample per call (direct form II transposed).
+
+    ``order`` 1 or 2, ``cutoff`` (Hz) below ``rate`` / 2 (Hz, the sample rate). The first
+    sample sets the state to that of a long steady input: a sensor is powered before a run.
+    """
+
+    def __init__(self, order: int, cutoff: float, rate: float):
+        from scipy import signal
+
+        if order not in (1, 2):
+            raise ValueError(f"filter order must be 1 or 2, got {order!r}")
+        if not (math.isfinite(cutoff) and 0 < cutoff < rate / 2):
+            raise ValueError(f"filter cut-off must be between 0 and {rate / 2:g} Hz "
+                             f"(half the sample rate), got {cutoff!r}")
+        b, a = signal.butter(order, cutoff, fs=rate)
+        self.order, self.cutoff, self.rate = order, float(cutoff), float(rate)
+        self.b = tuple(float(v) for v in b)
+        self.a = tuple(float(v) for v in a)  # a[0] == 1
+        self._unit_state = tuple(float(v) for v in signal.lfilter_zi(b, a))
+        self._state: list[list[float]] | None = None
+
+    def reset(self, steady: Vector3 | None = None) -> None:
+        """Forget the past; with ``steady``, start as after a long constant input of it."""
+        self._state = (None if steady is None else
+                       [[z * float(x) for z in self._unit_state] for x in steady])
+
+    def __call__(self, x: Vector3) -> Vector3:
+        """The filter's output (three floats) for the next sample ``x``."""
+        if self._state is None:
+            self.reset(x)
+        b, a = self.b, self.a
+        out = []
+        for value, state in zip(x, self._state):
+            y = b[0] * value + state[0]
+            if self.order == 1:
+                state[0] = b[1] * value - a[1] * y
+            else:
+                state[0] = b[1] * value - a[1] * y + state[1]
+                state[1] = b[2] * value - a[2] * y
+            out.append(y)
+        return (out[0], out[1], out[2])
+
+
 class Imu:
     """A 3-axis gyro and 3-axis accelerometer sampled at one rate, from one seed.
 
@@ -161,6 +230,50 @@ class Imu:
         self._correction = [0.0] * 6
         self._corrected = False
         self._last: tuple[Vector3, Vector3] | None = None
+        self._real_parts(imu_spec, rate)
+
+    def _real_parts(self, imu_spec: Any, rate: float) -> None:
+        """Mounting, scale errors and the sensor's own filters (all absent: none of them)."""
+        gyro, accel = imu_spec.gyro, imu_spec.accel
+        rotation = tuple(float(v) for v in getattr(imu_spec, "rotation", (0.0, 0.0, 0.0)))
+        scales = (1.0 + float(getattr(gyro, "scale_error", 0.0)),
+                  1.0 + float(getattr(accel, "scale_error", 0.0)))
+        self._turn: tuple[np.ndarray, np.ndarray] | None = None
+        if any(rotation) or scales != (1.0, 1.0):
+            to_board = mount_rotation(*rotation).T
+            self._turn = (scales[0] * to_board, scales[1] * to_board)
+        order = int(getattr(imu_spec, "filter_order", 2))
+        self._filters = tuple(
+            None if getattr(section, "bandwidth", None) is None
+            else LowPass(order, float(section.bandwidth), rate)
+            for section in (gyro, accel))
+        self.filtering = any(f is not None for f in self._filters)
+        self._fed: tuple[Vector3, Vector3] | None = None
+        self._fresh = False  # fed since the last read
+
+    def _turned(self, true_rate: Vector3, true_force: Vector3) -> tuple[Vector3, Vector3]:
+        """The true vectors in the board's axes, scale errors applied."""
+        if self._turn is None:
+            return true_rate, true_force
+        rate = self._turn[0] @ np.asarray(true_rate, dtype=float)
+        force = self._turn[1] @ np.asarray(true_force, dtype=float)
+        return (float(rate[0]), float(rate[1]), float(rate[2])), \
+            (float(force[0]), float(force[1]), float(force[2]))
+
+    def feed(self, true_rate: Vector3, true_force: Vector3) -> tuple[Vector3, Vector3]:
+        """One sensor sample of the true rate (rad/s) and specific force (m/s²), body axes,
+        into the sensor's own filters; call at every sample when ``filtering``. Returns the
+        filtered values (board axes, before bias, noise and quantisation), which the next
+        :meth:`read` reports."""
+        rate, force = self._turned(true_rate, true_force)
+        gyro_filter, accel_filter = self._filters
+        if gyro_filter is not None:
+            rate = gyro_filter(rate)
+        if accel_filter is not None:
+            force = accel_filter(force)
+        self._fed = (rate, force)
+        self._fresh = True
+        return self._fed
 
     def _bias(self) -> list[float]:
         """The present bias of the six axes (gyro rad/s, then accel m/s²)."""
@@ -198,6 +311,13 @@ class Imu:
         ``samples_elapsed`` is how many sensor samples were taken since the
         previous call; the bias walk advances by that many samples. With 0 no
         new sample exists and the previous reading is returned again.
+
+        With a filter (``filtering``) the values reported are those of the last
+        :meth:`feed` (feed the samples in time order, up to the one read). If
+        nothing was fed since the previous read, the arguments are fed
+        ``samples_elapsed`` times (at least once): the truth held over the
+        samples, for loops that do not feed every sample. With a mounting
+        rotation or scale error the values are turned and scaled first.
         """
         if samples_elapsed == 1:
             walk_scale = 1.0
@@ -211,6 +331,14 @@ class Imu:
             raise ValueError(f"samples_elapsed must be >= 0, got {samples_elapsed!r}")
         if samples_elapsed:
             self._usual_scale = walk_scale
+        if self.filtering:
+            if not self._fresh:  # a loop that does not feed: hold this truth over the samples
+                for _ in range(max(samples_elapsed, 1)):
+                    self.feed(true_rate, true_specific_force)
+            self._fresh = False
+            true_rate, true_specific_force = self._fed
+        elif self._turn is not None:
+            true_rate, true_specific_force = self._turned(true_rate, true_specific_force)
 
         k = self._next_row
         if k >= len(self._offsets):
@@ -278,20 +406,48 @@ class Encoders:
     """Quadrature encoders on the two motor shafts, counting the wheels' turn relative to the body.
 
     ``counts_per_rev`` counts per motor-shaft turn; the wheel turns once per
-    ``gear_ratio`` motor turns.
+    ``gear_ratio`` motor turns. With ``shaft="wheel"`` the encoders sit on the gearbox
+    output: ``counts_per_rev`` per wheel turn, whatever the gear ratio. ``gear_ratio_right``
+    is the right motor's, when it differs.
     """
 
-    def __init__(self, counts_per_rev: int, gear_ratio: float):
+    def __init__(self, counts_per_rev: int, gear_ratio: float, *, shaft: str = "motor",
+                 gear_ratio_right: float | None = None):
         if not (isinstance(counts_per_rev, (int, np.integer)) and counts_per_rev >= 1):
             raise ValueError(f"counts_per_rev must be an integer >= 1, got {counts_per_rev!r}")
         if not (math.isfinite(gear_ratio) and gear_ratio > 0):
             raise ValueError(f"gear_ratio must be > 0, got {gear_ratio!r}")
+        if shaft not in ("motor", "wheel"):
+            raise ValueError(f"shaft must be 'motor' or 'wheel', got {shaft!r}")
+        right = gear_ratio if gear_ratio_right is None else gear_ratio_right
+        if not (math.isfinite(right) and right > 0):
+            raise ValueError(f"gear_ratio_right must be > 0, got {gear_ratio_right!r}")
         self.counts_per_rev = int(counts_per_rev)
         self.gear_ratio = float(gear_ratio)
-        self._counts_per_radian = self.counts_per_rev * self.gear_ratio / (2.0 * math.pi)
+        self.shaft = shaft
+        ratios = {"left": self.gear_ratio, "right": float(right)}
+        if shaft == "wheel":
+            ratios = {"left": 1.0, "right": 1.0}
+        self._side_counts_per_radian = {
+            side: self.counts_per_rev * ratio / (2.0 * math.pi) for side, ratio in ratios.items()}
+        self._counts_per_radian = self._side_counts_per_radian["left"]
         self._lost = {"left": 0, "right": 0}  # counts the encoder failed to register
         self._raw = {"left": 0, "right": 0}
         self._direction = {"left": 1, "right": 1}  # sign of the last change; forward at first
+
+    @classmethod
+    def from_spec(cls, spec: Any) -> Encoders:
+        """The encoders of a validated RobotSpec: its ``encoders`` section and each side's
+        gear ratio."""
+        section = spec.encoders
+        return cls(section.counts_per_rev, spec.motor_side("left").gear_ratio,
+                   shaft=getattr(section, "shaft", "motor"),
+                   gear_ratio_right=spec.motor_side("right").gear_ratio)
+
+    @property
+    def counts_per_wheel_rev(self) -> float:
+        """Counts of one wheel turn relative to the body (the left wheel's)."""
+        return self._counts_per_radian * 2.0 * math.pi
 
     def ticks(self, angle_left: float, angle_right: float) -> tuple[int, int]:
         """Counts for the wheels' angles relative to the body (rad, + forward).
@@ -314,7 +470,7 @@ class Encoders:
 
     def _count(self, side: str, angle: float) -> int:
         try:
-            raw = math.floor(angle * self._counts_per_radian)
+            raw = math.floor(angle * self._side_counts_per_radian[side])
         except (ValueError, OverflowError):
             raise ValueError(f"{side} wheel angle is not a finite number: {angle!r}") from None
         change = raw - self._raw[side]

@@ -15,7 +15,15 @@ from pathlib import Path
 from typing import Annotated, Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationError, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    create_model,
+    model_validator,
+)
 
 from .inertia import MassProperties, box_inertia, combine, cylinder_inertia_y
 from .units import STANDARD_GRAVITY, UnitError, to_si
@@ -81,6 +89,7 @@ Acceleration = Annotated[float, _si("acceleration")]
 Inertia = Annotated[float, _si("inertia")]
 Charge = Annotated[float, _si("charge")]
 Fraction = Annotated[float, _si("fraction")]
+Angle = Annotated[float, _si("angle")]
 GyroDensity = Annotated[float, _si("gyro_density")]
 AccelDensity = Annotated[float, _si("accel_density")]
 GyroWalk = Annotated[float, _si("gyro_walk")]
@@ -93,6 +102,11 @@ PositiveSize = tuple[
 
 class Section(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _absent(value: object) -> bool:
+    """An optional key left out of the file: left out of to_si_dict too."""
+    return value is None
 
 
 class Frame(Section):
@@ -115,9 +129,20 @@ class Part(Section):
     colour: str | None = Field(default=None, pattern=r"^#[0-9a-fA-F]{6}$")
 
 
+class Measured(Section):
+    """The body's figures as measured on the real robot (without the wheels); each one given
+    replaces the figure derived from the parts. ``pitch_inertia`` is about the body's centre
+    of mass (kg·m²)."""
+
+    mass: Mass | None = Field(default=None, gt=0, exclude_if=_absent)
+    com: Position | None = Field(default=None, exclude_if=_absent)
+    pitch_inertia: Inertia | None = Field(default=None, gt=0, exclude_if=_absent)
+
+
 class Body(Section):
     frame: Frame
     parts: list[Part] = []
+    measured: Measured | None = Field(default=None, exclude_if=_absent)
 
 
 class Wheels(Section):
@@ -127,6 +152,8 @@ class Wheels(Section):
     track: Length = Field(gt=0)  # distance between the two wheel centres
     friction: float = Field(default=0.9, gt=0, le=3.0)
     rolling_resistance: float = Field(default=0.0, ge=0, le=0.2)  # rolling friction coefficient
+    left: WheelSide | None = Field(default=None, exclude_if=_absent)  # this side's own figures
+    right: WheelSide | None = Field(default=None, exclude_if=_absent)
 
 
 class Motors(Section):
@@ -139,6 +166,36 @@ class Motors(Section):
     gear_ratio: GearRatio = Field(default=48.0, ge=1.0)
     rotor_inertia: Inertia = Field(default=1.0e-7, ge=0)  # at the motor shaft
     friction_torque: Torque = Field(default=0.005, ge=0)  # Coulomb, at the output shaft
+    # breakaway torque at the output shaft (Karnopp stick-slip); absent: equal to friction_torque
+    static_friction_torque: Torque | None = Field(default=None, ge=0, exclude_if=_absent)
+    left: MotorSide | None = Field(default=None, exclude_if=_absent)  # this side's own figures
+    right: MotorSide | None = Field(default=None, exclude_if=_absent)
+
+    @model_validator(mode="after")
+    def _static_at_least_kinetic(self) -> Motors:
+        static = self.static_friction_torque
+        if static is not None and static < self.friction_torque:
+            raise ValueError(
+                f"static_friction_torque {static:g} N·m is below friction_torque "
+                f"{self.friction_torque:g} N·m: the breakaway torque is at least the kinetic "
+                "one (raise static_friction_torque or lower friction_torque)")
+        return self
+
+
+def _side_model(section: type[Section], name: str, leave_out: tuple[str, ...]) -> type[Section]:
+    """A section's keys, each optional: one side's overrides (motors.left, wheels.right...)."""
+    fields: dict[str, Any] = {}
+    for key, info in section.model_fields.items():
+        if key in leave_out:
+            continue
+        kept = Annotated[(info.annotation, *info.metadata)]  # unit conversion and range
+        fields[key] = (kept | None, Field(default=None, exclude_if=_absent))
+    side = create_model(name, __base__=Section, **fields)
+    side.__doc__ = f"One side's overrides of the {section.__name__.lower()} section (SI)."
+    return side
+
+
+MotorSide = _side_model(Motors, "MotorSide", ("left", "right"))
 
 
 class Driver(Section):
@@ -148,6 +205,11 @@ class Driver(Section):
     pwm_bits: int = Field(default=8, ge=1, le=16)
     deadband: Fraction = Field(default=0.0, ge=0, lt=1)
     off_state: Literal["brake", "coast"] = "brake"
+
+
+WheelSide = _side_model(Wheels, "WheelSide", ("left", "right", "track"))
+Motors.model_rebuild()
+Wheels.model_rebuild()
 
 
 class Battery(Section):
@@ -164,6 +226,9 @@ class Gyro(Section):
     bias: AngularSpeed = Field(default=math.radians(0.5), ge=0)  # 0.5 deg/s
     bias_walk: GyroWalk = Field(default=0.0, ge=0)
     bits: int = Field(default=16, ge=4, le=32)
+    # the sensor's own digital low-pass (Butterworth), Hz; absent: no filter
+    bandwidth: Frequency | None = Field(default=None, gt=0, exclude_if=_absent)
+    scale_error: Fraction = Field(default=0.0, ge=-0.5, le=0.5)  # reading = (1 + e) · true
 
 
 class Accel(Section):
@@ -172,6 +237,9 @@ class Accel(Section):
     bias: Acceleration = Field(default=0.02, ge=0)
     bias_walk: AccelWalk = Field(default=0.0, ge=0)
     bits: int = Field(default=16, ge=4, le=32)
+    # the sensor's own digital low-pass (Butterworth), Hz; absent: no filter
+    bandwidth: Frequency | None = Field(default=None, gt=0, exclude_if=_absent)
+    scale_error: Fraction = Field(default=0.0, ge=-0.5, le=0.5)  # reading = (1 + e) · true
 
 
 class Imu(Section):
@@ -180,10 +248,34 @@ class Imu(Section):
     latency: Time = Field(default=0.0, ge=0, le=1.0)
     gyro: Gyro = Gyro()
     accel: Accel = Accel()
+    rotation: tuple[Angle, Angle, Angle] = (0.0, 0.0, 0.0)  # board mounting: roll, pitch, yaw
+    filter_order: Literal[1, 2] = 2  # of the Butterworth low-pass of gyro/accel bandwidth
+
+    @model_validator(mode="after")
+    def _filters_below_nyquist(self) -> Imu:
+        for name, sensor in (("gyro", self.gyro), ("accel", self.accel)):
+            if sensor.bandwidth is not None and sensor.bandwidth >= self.rate / 2:
+                raise ValueError(
+                    f"{name}.bandwidth {sensor.bandwidth:g} Hz must be below half the sample "
+                    f"rate (rate {self.rate:g} Hz / 2 = {self.rate / 2:g} Hz)")
+        return self
+
+    @property
+    def filtering(self) -> bool:
+        """True when the gyro or the accelerometer has its own low-pass filter."""
+        return self.gyro.bandwidth is not None or self.accel.bandwidth is not None
 
 
 class Encoders(Section):
-    counts_per_rev: int = Field(default=360, ge=1)  # per motor-shaft turn
+    counts_per_rev: int = Field(default=360, ge=1)  # per turn of the shaft below
+    shaft: Literal["motor", "wheel"] = "motor"  # encoder on the motor shaft or the wheel's
+
+
+class Board(Section):
+    """The microcontroller: timing of its loop (s)."""
+
+    loop_jitter: Time = Field(default=0.0, ge=0, le=0.1)  # standard deviation of tick times
+    compute_time: Time = Field(default=0.0, ge=0, le=1.0)  # from the reading to the duties
 
 
 class RobotSpec(Section):
@@ -198,6 +290,7 @@ class RobotSpec(Section):
     battery: Battery = Battery()
     imu: Imu = Imu()
     encoders: Encoders = Encoders()
+    board: Board = Board()
 
     @model_validator(mode="after")
     def _above_ground(self) -> RobotSpec:
@@ -222,6 +315,26 @@ class RobotSpec(Section):
             )
         return self
 
+    @model_validator(mode="after")
+    def _sides_valid(self) -> RobotSpec:
+        for section, make in (("motors", self.motor_side), ("wheels", self.wheel_side)):
+            for side in ("left", "right"):
+                try:
+                    make(side)
+                except ValidationError as err:
+                    problems = "; ".join(describe_error(e, type(getattr(self, section)))
+                                         for e in err.errors())
+                    raise ValueError(f"{section}.{side}: {problems}") from None
+        return self
+
+    def motor_side(self, side: str) -> Motors:
+        """The motors section with ``side``'s ('left'/'right') overrides applied."""
+        return _with_side(self.motors, side)
+
+    def wheel_side(self, side: str) -> Wheels:
+        """The wheels section with ``side``'s ('left'/'right') overrides applied."""
+        return _with_side(self.wheels, side)
+
     @property
     def battery_voltage(self) -> float:
         """Nominal battery voltage (V): cells × cell voltage."""
@@ -241,6 +354,18 @@ class RobotSpec(Section):
     def to_si_dict(self) -> dict[str, Any]:
         """The description with every value in SI, plain Python types (for run.yaml)."""
         return self.model_dump(mode="json")
+
+
+def _with_side(section: Motors | Wheels, side: str) -> Any:
+    """``section`` (motors or wheels) with one side's overrides, as the same class."""
+    if side not in ("left", "right"):
+        raise ValueError(f"side must be 'left' or 'right', got {side!r}")
+    overrides = getattr(section, side)
+    if overrides is None:
+        return section.model_copy(update={"left": None, "right": None})
+    data = section.model_dump(exclude={"left", "right"})
+    data.update(overrides.model_dump(exclude_none=True))
+    return type(section).model_validate(data)
 
 
 # --------------------------------------------------------------------- loading
@@ -470,10 +595,87 @@ class Figures:
     top_speed: float  # m/s, no-load wheel speed at drive_voltage
     com_height: float  # body centre of mass above the axle, m
     steepest_hold_tilt: float  # rad; tilt at which both motors at stall just hold the body
+    left: SideFigures | None = None  # each side with its own overrides (None: built by hand)
+    right: SideFigures | None = None
+    gyro_group_delay: float | None = None  # s, the gyro filter's at low frequency; None: none
+    accel_group_delay: float | None = None  # s, the accelerometer filter's
+    measured: tuple[str, ...] = ()  # body figures taken from body.measured
+
+    @property
+    def sides_differ(self) -> bool:
+        """True when the left and right motor or wheel figures are not the same."""
+        return self.left != self.right
 
     @property
     def wheel_inertia_axle(self) -> float:
         return float(self.wheel_inertia[1, 1])
+
+
+@dataclass(frozen=True)
+class SideFigures:
+    """One side's motor and wheel figures (SI), per-side overrides applied."""
+
+    resistance: float  # ohm
+    torque_constant: float  # N·m/A at the output shaft
+    back_emf_constant: float  # V·s/rad at the output shaft
+    reflected_inertia: float  # kg·m² at the wheel
+    stall_torque_wheel: float  # N·m at rated voltage
+    available_stall_torque: float  # N·m at the drive voltage
+    friction_torque: float  # N·m, kinetic
+    static_friction_torque: float  # N·m, breakaway
+    wheel_radius: float  # m
+    wheel_inertia_axle: float  # kg·m², one wheel about its axle
+    top_speed: float  # m/s, no-load at the drive voltage
+
+
+def side_figures(spec: RobotSpec, side: str, drive_voltage: float) -> SideFigures:
+    """The figures of one side ('left'/'right') of a validated description."""
+    m, w = spec.motor_side(side), spec.wheel_side(side)
+    resistance = m.rated_voltage / m.stall_current
+    torque_constant = m.stall_torque / m.stall_current
+    back_emf_constant = m.rated_voltage / m.no_load_speed
+    static = m.static_friction_torque
+    return SideFigures(
+        resistance=resistance,
+        torque_constant=torque_constant,
+        back_emf_constant=back_emf_constant,
+        reflected_inertia=m.rotor_inertia * m.gear_ratio**2,
+        stall_torque_wheel=m.stall_torque,
+        available_stall_torque=torque_constant * drive_voltage / resistance,
+        friction_torque=m.friction_torque,
+        static_friction_torque=m.friction_torque if static is None else static,
+        wheel_radius=w.radius,
+        wheel_inertia_axle=float(cylinder_inertia_y(w.mass, w.radius, w.width)[1, 1]),
+        top_speed=drive_voltage / back_emf_constant * w.radius,
+    )
+
+
+def filter_group_delay(bandwidth: float | None, order: int) -> float | None:
+    """Low-frequency group delay (s) of a Butterworth low-pass of cut-off ``bandwidth`` (Hz):
+    1/(2π f_c) for first order, √2/(2π f_c) for second order (from H(s)); None without one."""
+    if bandwidth is None:
+        return None
+    return (1.0 if order == 1 else math.sqrt(2.0)) / (2.0 * math.pi * bandwidth)
+
+
+def measured_body(parts: MassProperties, measured: Measured | None) -> MassProperties:
+    """The parts' mass properties with any measured figures put in their place.
+
+    A measured pitch inertia replaces Iyy about the centre of mass; if it then breaks the
+    rigid-body inequality Iyy <= Ixx + Izz, Ixx and Izz are raised to meet it.
+    """
+    if measured is None:
+        return parts
+    mass = parts.mass if measured.mass is None else measured.mass
+    com = parts.com if measured.com is None else np.array(measured.com, dtype=float)
+    inertia = parts.inertia.copy()
+    if measured.pitch_inertia is not None:
+        inertia[1, 1] = measured.pitch_inertia
+        shortfall = inertia[1, 1] - inertia[0, 0] - inertia[2, 2]
+        if shortfall > 0:
+            inertia[0, 0] += 0.5005 * shortfall
+            inertia[2, 2] += 0.5005 * shortfall
+    return MassProperties(mass, com, inertia)
 
 
 def frame_box(spec: RobotSpec) -> Box:
@@ -490,6 +692,7 @@ def derive(spec: RobotSpec) -> Figures:
                          part.colour or PALETTE[i % len(PALETTE)]))
     body = combine(MassProperties(b.mass, np.array(b.at), box_inertia(b.mass, b.size))
                    for b in boxes)
+    body = measured_body(body, spec.body.measured)
 
     w = spec.wheels
     wheel_inertia = cylinder_inertia_y(w.mass, w.radius, w.width)
@@ -504,7 +707,11 @@ def derive(spec: RobotSpec) -> Figures:
     available = torque_constant * drive_voltage / resistance
     com_height = float(math.hypot(body.com[0], body.com[2]))
     lean_torque = body.mass * STANDARD_GRAVITY * com_height
-    ratio = 2 * available / lean_torque if lean_torque > 0 else math.inf
+    left, right = (side_figures(spec, side, drive_voltage) for side in ("left", "right"))
+    both = left.available_stall_torque + right.available_stall_torque  # 2 · available if alike
+    ratio = both / lean_torque if lean_torque > 0 else math.inf
+    imu = spec.imu
+    measured = spec.body.measured
     steepest = math.pi / 2 if ratio >= 1 else math.asin(ratio)
     return Figures(
         boxes=tuple(boxes),
@@ -524,6 +731,12 @@ def derive(spec: RobotSpec) -> Figures:
         top_speed=drive_voltage / back_emf_constant * w.radius,
         com_height=com_height,
         steepest_hold_tilt=steepest,
+        left=left,
+        right=right,
+        gyro_group_delay=filter_group_delay(imu.gyro.bandwidth, imu.filter_order),
+        accel_group_delay=filter_group_delay(imu.accel.bandwidth, imu.filter_order),
+        measured=() if measured is None else tuple(
+            key for key, value in measured.model_dump().items() if value is not None),
     )
 
 
@@ -552,5 +765,26 @@ def figures_json(spec: RobotSpec) -> dict[str, Any]:
         "available_stall_torque_per_wheel_n_m": f.available_stall_torque,
         "top_speed_m_s": f.top_speed,
         "steepest_hold_tilt_deg": math.degrees(f.steepest_hold_tilt),
+        "sides_differ": f.sides_differ,
+        "sides": {side: _side_json(getattr(f, side)) for side in ("left", "right")},
+        "imu_gyro_group_delay_s": f.gyro_group_delay,
+        "imu_accel_group_delay_s": f.accel_group_delay,
+        "body_measured": list(f.measured),
         "description": spec.to_si_dict(),
+    }
+
+
+def _side_json(side: SideFigures) -> dict[str, float]:
+    return {
+        "motor_resistance_ohm": side.resistance,
+        "torque_constant_n_m_per_a": side.torque_constant,
+        "back_emf_constant_v_s_per_rad": side.back_emf_constant,
+        "reflected_rotor_inertia_kg_m2": side.reflected_inertia,
+        "stall_torque_n_m": side.stall_torque_wheel,
+        "available_stall_torque_n_m": side.available_stall_torque,
+        "friction_torque_n_m": side.friction_torque,
+        "static_friction_torque_n_m": side.static_friction_torque,
+        "wheel_radius_m": side.wheel_radius,
+        "wheel_inertia_kg_m2": side.wheel_inertia_axle,
+        "top_speed_m_s": side.top_speed,
     }

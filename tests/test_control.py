@@ -129,7 +129,7 @@ def test_robot_facts_of_a_single_box_body():
     assert facts.pitch_inertia == pytest.approx(expected_inertia, rel=1e-12), "pitch_inertia"
     assert facts.com_height == pytest.approx(centre_z, rel=1e-12), "com_height"
     assert facts.mass == pytest.approx(0.5 + 2 * 0.05, rel=1e-12), "mass"
-    assert facts.counts_per_rev == 12 * 30
+    assert facts.counts_per_wheel_rev == 12 * 30
     assert facts.battery_voltage == pytest.approx(7.2) and facts.drive_voltage == pytest.approx(6.0)
     assert facts.max_wheel_speed == pytest.approx(20.0 * 6.0 / 6.0, rel=1e-12), "max_wheel_speed"
     assert facts.imu_at == (0.0, 0.0, 0.1)
@@ -668,7 +668,8 @@ def test_kalman_from_reading_and_validation():
 # --------------------------------------------------------------------- tilt, odometry, gains
 
 def _facts(**changes):
-    base = dict(wheel_radius=0.04, track=0.15, counts_per_rev=1000.0, mass=1.1, com_height=0.1,
+    base = dict(wheel_radius=0.04, track=0.15, counts_per_wheel_rev=1000.0, mass=1.1,
+                com_height=0.1,
                 battery_voltage=7.2, drive_voltage=6.0, max_wheel_speed=30.0,
                 imu_at=(0.0, 0.0, 0.1), physics_dt=0.001, rate_hz=200.0, pitch_inertia=0.02,
                 body_mass=1.0, stall_torque=0.3)
@@ -712,7 +713,7 @@ def test_wheel_odometry_distance_speed_and_acceleration():
 
     facts = _facts()
     odometry = WheelOdometry(facts, speed_filter=0.02)
-    counts = facts.counts_per_rev
+    counts = facts.counts_per_wheel_rev
     assert odometry.update((int(counts), int(counts)), 0.0, 0.005) == pytest.approx(
         2 * math.pi * 0.04)
     assert odometry.update((0, 0), 0.25, 0.005) == pytest.approx(0.04 * 0.25)

@@ -183,11 +183,17 @@ def nominal_value(key: str, robot: Mapping[str, Any], config: Mapping[str, Any])
                              f"give one with --set {key}=VALUE or a --config file")
     else:
         node: Any = robot
-        for part in key.split("."):
+        parts = key.split(".")
+        if (len(parts) == 3 and parts[0] in ("motors", "wheels") and parts[1] in ("left", "right")
+                and parts[2] not in (robot.get(parts[0], {}).get(parts[1]) or {})):
+            parts = [parts[0], parts[2]]  # a side without its own value has the section's
+        for part in parts:
             try:
                 node = node[int(part)] if isinstance(node, list) else node[part]
             except (KeyError, IndexError, ValueError, TypeError):
-                raise SweepError(f"{key}: no such key in the robot description") from None
+                raise SweepError(f"{key}: no value in the robot description to spread around "
+                                 "(check the key; an optional key the file leaves out, such as "
+                                 f"imu.gyro.bandwidth, needs one: --set {key}=VALUE)") from None
         value = node
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise SweepError(f"{key}: the value {value!r} is not a number, so it cannot be spread")
