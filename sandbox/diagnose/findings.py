@@ -248,15 +248,17 @@ def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
             f"at {own:.2f} 1/s on its own ({100 * share:.0f} % of that remains): raise the tilt "
             "gain (kp), then the pitch-rate gain", 1.0, growth_rate_1_s=rate,
             fall_rate_1_s=own, share_of_fall_rate=share, start_s=grow["start_s"]))
-    speed = trace["speed_m_s"][window]
-    rise = steady_growth(t, speed)
+    # travel is read before the final fall: falling speeds the wheels up in any robot
+    calm = np.nonzero(np.abs(pitch - reference) < FALL_ONSET_TILT)[0]
+    upright = int(calm[-1]) + 1 if calm.size else 0
+    speed = trace["speed_m_s"][window][:upright]
+    rise = steady_growth(t[:upright], speed)
     top = float(np.median(speed_limit(trace, spec)[window])) * spec.wheels.radius
     if rise is not None:
-        during = (t >= rise["start_s"]) & (t <= rise["end_s"])
-        reached = float(np.abs(speed[during]).max()) if during.any() else 0.0
+        reached = rise["peak"]
         long = rise["end_s"] - rise["start_s"] >= RUNAWAY_MIN_DURATION
         if long and reached >= RUNAWAY_MIN_SPEED * top and rise["rising_share"] >= RUNAWAY_STEADY:
-            x = trace["x_m"][window]
+            x = trace["x_m"][window][:upright]
             travel = float(x[-1] - x[0])
             out.append(finding(
                 "runaway", f"runaway travel: the speed grew steadily from {rise['start_s']:.2f} "
@@ -267,8 +269,8 @@ def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
                 end_s=rise["end_s"], speed_m_s=reached, top_speed_m_s=top, travel_m=travel,
                 tilt_growth_rate_1_s=None if grow is None else grow["growth_rate_1_s"]))
             return out
-    x = trace["x_m"][window] - trace["x_m"][window][0]
-    drift = steady_growth(t, x)
+    x = trace["x_m"][window][:upright] - trace["x_m"][window][0]
+    drift = steady_growth(t[:upright], x) if upright >= 3 else None
     travel = float(x[-1])
     if (drift is not None and drift["end_s"] - drift["start_s"] >= RUNAWAY_MIN_DURATION
             and drift["rising_share"] >= RUNAWAY_STEADY

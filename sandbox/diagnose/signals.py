@@ -115,34 +115,30 @@ def final_run(t: np.ndarray, flag: np.ndarray) -> tuple[float, float]:
     return float(t[-1] - t[first]) + period, float(t[first])
 
 
-def steady_growth(t: np.ndarray, v: np.ndarray, window: float = 0.2) -> dict[str, float] | None:
-    """The longest stretch over which |v| (moving average over ``window`` s) kept rising.
+def steady_growth(t: np.ndarray, v: np.ndarray, window: float = 0.2,
+                  from_share: float = 0.1) -> dict[str, float] | None:
+    """How |v| (moving average over ``window`` s) rose to its largest value.
 
-    Returns its start and end (s) and the share of ticks in it that rose; a dip
-    shorter than the window does not end the stretch.
+    The rise is timed from the last moment |v| was below ``from_share`` of that
+    largest value (a jump, as a push gives, takes no time) to the moment it
+    was reached; ``rising_share`` is the share of ticks in between that rose.
     """
     if v.size < 3:
         return None
     dt = float(np.median(np.diff(t)))
     n = max(1, int(round(window / dt)))
-    smooth = np.convolve(np.abs(v), np.ones(n) / n, mode="same")
-    rising = np.diff(smooth) > 0
-    best = None
-    start = None
-    last_up = None
-    for i, up in enumerate(np.append(rising, False)):
-        if up:
-            start = i if start is None else start
-            last_up = i
-        elif start is not None and (i - last_up > n or i == rising.size):
-            span = (start, last_up + 1)
-            if best is None or span[1] - span[0] > best[1] - best[0]:
-                best = span
-            start = None
-    if best is None:
+    padded = np.concatenate([np.full(n - 1, abs(v[0])), np.abs(v)])
+    smooth = np.convolve(padded, np.ones(n) / n, mode="valid")  # trailing average
+    peak = int(np.argmax(smooth))
+    if smooth[peak] <= 0:
         return None
-    share = float(np.mean(rising[best[0]:best[1]]))
-    return {"start_s": float(t[best[0]]), "end_s": float(t[best[1]]), "rising_share": share}
+    low = np.nonzero(smooth[:peak + 1] < from_share * smooth[peak])[0]
+    start = int(low[-1]) if low.size else 0
+    if peak <= start:
+        return None
+    share = float(np.mean(np.diff(smooth[start:peak + 1]) > 0))
+    return {"start_s": float(t[start]), "end_s": float(t[peak]), "rising_share": share,
+            "peak": float(smooth[peak])}
 
 
 def touching_tilt(spec) -> float:
