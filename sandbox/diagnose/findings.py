@@ -198,7 +198,9 @@ def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
     if t.size < 5:
         return []
     out = []
-    reference = float(np.median(pitch[: max(1, min(pitch.size, int(0.2 * rate_hz)))]))
+    # where the tilt was before the event (a robot on a slope leans into it), else upright
+    before = (t_all >= start - 0.5) & (t_all < start)
+    reference = float(np.median(trace["pitch_rad"][before])) if before.any() else 0.0
     linear = np.abs(pitch) <= OSC_LINEAR_TILT
     cut = int(np.argmin(linear)) if not linear.all() else pitch.size
     saturated = ((np.abs(trace["duty_l"][window]) >= SATURATED)

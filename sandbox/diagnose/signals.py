@@ -79,13 +79,15 @@ def exponential_growth(t: np.ndarray, y: np.ndarray, low: float = DIV_FIT_LOW,
                        high: float = DIV_FIT_HIGH) -> dict[str, float] | None:
     """Rate (1/s) at which |y| grew without changing sign up to the end, or None.
 
-    The last stretch of one sign is fitted, ln|y| against t, where low ≤ |y| ≤ high;
+    The last stretch of one sign, from its smallest |y| on, is fitted, ln|y|
+    against t, where low ≤ |y| ≤ high;
     None unless it covers DIV_MIN_GROWTH and the fit's R² reaches DIV_MIN_R2.
     """
     if y.size < 3 or y[-1] == 0:
         return None
     flipped = np.nonzero(np.sign(y) != np.sign(y[-1]))[0]
     start = int(flipped[-1]) + 1 if flipped.size else 0
+    start += int(np.argmin(np.abs(y[start:])))  # the growth starts where |y| was smallest
     a = np.abs(y[start:])
     ts = t[start:]
     inside = (a >= low) & (a <= high)
