@@ -40,7 +40,8 @@ RUNAWAY_MIN_SPEED = 0.3  # fraction of the top speed the speed must reach
 RUNAWAY_STEADY = 0.8  # fraction of ticks in which |speed| (smoothed) went up
 RUNAWAY_MIN_TRAVEL = 20.0  # wheel radii of steady travel that count as position runaway
 TOP_SPEED_FRACTION = 0.9  # wheel rate / back-EMF limit counted as "at top speed"
-SATURATION_MIN = 0.05  # s of duty at ±1 before the end that count
+SATURATION_MIN = 0.05  # s of duty at ±1 before the end that count...
+SATURATION_SHARE = 0.02  # ...or this share of all ticks at ±1 (or clipped)
 CLIPPED_SHARE = 0.5  # share of ticks with clipped duties that makes the output the cause
 SENSOR_CLIP_FRACTION = 0.99  # reading / range counted as clipped
 FALL_ONSET_TILT = math.radians(5.0)  # a fall's final excursion starts where it left this
@@ -116,7 +117,8 @@ def _saturation(trace, summary) -> dict | None:
     clipped = int(summary.get("clipped_duties") or 0)
     held = max(sides["l"][0], sides["r"][0])
     fraction = max(sides["l"][2], sides["r"][2])
-    if held < SATURATION_MIN and not clipped:
+    share_clipped = clipped / max(1, t.size)
+    if held < SATURATION_MIN and fraction < SATURATION_SHARE and share_clipped < SATURATION_SHARE:
         return None
     both = sides["l"][0] >= SATURATION_MIN and sides["r"][0] >= SATURATION_MIN
     side = "both sides" if both else ("left" if sides["l"][0] >= sides["r"][0] else "right")
@@ -127,7 +129,6 @@ def _saturation(trace, summary) -> dict | None:
             f"duty at ±1 in {100 * fraction:.0f} % of ticks")
     raw = [trace[c] for c in ("duty_raw_l", "duty_raw_r") if c in trace]
     asked = float(np.nanmax(np.abs(np.concatenate(raw)))) if raw else None
-    share_clipped = clipped / max(1, t.size)
     if clipped:
         text += (f"; the controller asked for more than ±1 on {clipped} ticks"
                  + (f" (up to {asked:.3g})" if asked is not None else "") + ", clipped")
@@ -190,7 +191,8 @@ def _sensors(trace, spec, fell: bool) -> list[dict]:
     return out
 
 
-def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
+def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = None
+          ) -> list[dict]:
     """Oscillation, divergence or runaway in the tilt and travel after ``start`` (s)."""
     t_all = trace["t_s"]
     window = t_all >= start
@@ -274,9 +276,10 @@ def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
     x = trace["x_m"][window][:upright] - trace["x_m"][window][0]
     drift = steady_growth(t[:upright], x) if upright >= 3 else None
     travel = float(x[-1])
+    far = drift_limit if drift_limit is not None else RUNAWAY_MIN_TRAVEL * spec.wheels.radius
     if (drift is not None and drift["end_s"] - drift["start_s"] >= RUNAWAY_MIN_DURATION
-            and drift["rising_share"] >= RUNAWAY_STEADY
-            and abs(travel) >= RUNAWAY_MIN_TRAVEL * spec.wheels.radius):
+            and drift["rising_share"] >= RUNAWAY_STEADY and abs(travel) >= far
+            and not any(f["code"] == "oscillation" for f in out)):  # a swing can walk it off
         out.append(finding(
             "runaway", f"the robot kept rolling {'forward' if travel > 0 else 'backward'}: "
             f"{travel:+.2f} m from {drift['start_s']:.2f} to {drift['end_s']:.2f} s at a "
@@ -286,11 +289,15 @@ def _loop(trace, spec, start, settings, rate_hz) -> list[dict]:
     return out
 
 
-def _failure_time(trace, summary, test_result) -> float:
-    """When the run failed: the fall, else the moment the first failed check was lost."""
+def _failure_time(trace, summary, test_result) -> tuple[float, bool]:
+    """When the run failed: the fall, else the moment the first failed check was lost.
+
+    The flag is False for a recovery that never came: the time is then the
+    disturbance's own.
+    """
     t = trace["t_s"]
     if summary.get("fell_at_s") is not None:
-        return float(summary["fell_at_s"])
+        return float(summary["fell_at_s"]), True
     for check in (test_result or {}).get("checks", []):
         if check.get("passed"):
             continue
@@ -300,10 +307,10 @@ def _failure_time(trace, summary, test_result) -> float:
                         else np.zeros_like(t))
             over = np.nonzero(np.abs(trace["x_m"] - expected) > check["limit_value"])[0]
             if over.size:
-                return float(t[over[0]])
+                return float(t[over[0]]), True
         if str(check.get("label", "")).startswith("back within"):
-            return _worst_recovery(trace, test_result)
-    return float(t[-1]) if t.size else 0.0
+            return _worst_recovery(trace, test_result), False
+    return float(t[-1]) if t.size else 0.0, True
 
 
 def _worst_recovery(trace, test_result) -> float:
@@ -321,7 +328,7 @@ def _worst_recovery(trace, test_result) -> float:
     return when
 
 
-def _disturbance(marks, failed_at: float, fell: bool) -> dict:
+def _disturbance(marks, failed_at: float, fell: bool, settled: bool = True) -> dict:
     """Which event of the test the failure followed (time, kind, size)."""
     before = [(float(m[0]), str(m[1])) for m in marks if float(m[0]) <= failed_at + 1e-9]
     what = "fell" if fell else "failed"
@@ -333,8 +340,9 @@ def _disturbance(marks, failed_at: float, fell: bool) -> dict:
     kind, _, size = label.partition(" ")
     if kind in ("gyro", "accel", "encoder"):
         kind, size = " ".join(label.split()[:2]), " ".join(label.split()[2:])
-    return finding("disturbance", f"{what} {failed_at - when:.2f} s after the {label} at "
-                   f"{when:.2f} s", 0.8, t_s=when, kind=kind, size=size or None,
+    text = (f"{what} {failed_at - when:.2f} s after the {label} at {when:.2f} s" if settled
+            else f"the tilt never settled back after the {label} at {when:.2f} s")
+    return finding("disturbance", text, 0.8, t_s=when, kind=kind, size=size or None,
                    failed_at_s=failed_at, label=label)
 
 
@@ -360,14 +368,16 @@ def diagnose(trace: dict[str, np.ndarray], summary: dict, spec, *, marks=(),
     start = 0.0
     marks = list(marks or (summary.get("marks") or []))
     if failed or (marks and status == "fell"):
-        failed_at = _failure_time(trace, summary, test_result)
-        event = _disturbance(marks, failed_at, status == "fell")
+        failed_at, settled = _failure_time(trace, summary, test_result)
+        event = _disturbance(marks, failed_at, status == "fell", settled)
         found.append(event)
         if event["figures"]["t_s"] is not None:
             start = event["figures"]["t_s"]
-    loop = _loop(trace, spec, start, settings, rate_hz)
+    drift_limit = next((c.get("limit_value") for c in (test_result or {}).get("checks", [])
+                        if c.get("label") == "position held" and not c.get("passed")), None)
+    loop = _loop(trace, spec, start, settings, rate_hz, drift_limit)
     if start > 0 and not loop:  # nothing after the event: look at the whole run
-        loop = _loop(trace, spec, 0.0, settings, rate_hz)
+        loop = _loop(trace, spec, 0.0, settings, rate_hz, drift_limit)
     found += loop
     for extra in (_saturation(trace, summary), _top_speed(trace, spec)):
         if extra is not None:
