@@ -371,3 +371,25 @@ def test_cli_prints_the_diagnosis_and_writes_it(tmp_path):
     assert "why (most likely first" in result.output and "1. [saturated]" in result.output
     summary = json.loads((out / "summary.json").read_text())
     assert summary["diagnosis"][0]["code"] == "saturated"
+
+
+def test_suite_prints_the_first_finding_of_each_failed_test(tmp_path, monkeypatch):
+    """`upright suite` prints, under its table, the first finding of every failed test."""
+    import sandbox.suite
+
+    def fake_suite(spec, settings, folder, **kwargs):
+        figures = {"max_abs_pitch_deg": 40.0, "drift_m": 0.1}
+        return {"passed": False, "tests": [
+            {"name": "push", "passed": False, "status": "fell", "checks": [],
+             "figures": figures, "diagnosis": [
+                 {"code": "runaway", "text": "runaway travel", "figures": {}},
+                 {"code": "top_speed", "text": "second finding", "figures": {}}]},
+            {"name": "slope", "passed": True, "status": "completed", "checks": [],
+             "figures": figures, "diagnosis": []}]}
+
+    monkeypatch.setattr(sandbox.suite, "run_suite", fake_suite)
+    result = CliRunner().invoke(app, ["suite", str(SHELF_RUNNER), CONSTANT, "--out",
+                                      str(tmp_path / "suite")])
+    assert result.exit_code == 1, result.output
+    assert "push: [runaway] runaway travel" in result.output
+    assert "second finding" not in result.output and "slope: [" not in result.output
