@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 
-from ..metrics import SATURATED
 from .signals import (
     exponential_growth,
     fall_rate,
@@ -40,6 +39,7 @@ RUNAWAY_MIN_SPEED = 0.3  # fraction of the top speed the speed must reach
 RUNAWAY_STEADY = 0.8  # fraction of ticks in which |speed| (smoothed) went up
 RUNAWAY_MIN_TRAVEL = 20.0  # wheel radii of steady travel that count as position runaway
 TOP_SPEED_FRACTION = 0.9  # wheel rate / back-EMF limit counted as "at top speed"
+DUTY_FULL = 0.99  # |duty| within 1 % of full counts as saturated (a steering term trims a side)
 SATURATION_MIN = 0.05  # s of duty at ±1 before the end that count...
 SATURATION_SHARE = 0.02  # ...or this share of all ticks at ±1 (or clipped)
 CLIPPED_SHARE = 0.5  # share of ticks with clipped duties that makes the output the cause
@@ -111,7 +111,7 @@ def _saturation(trace, summary) -> dict | None:
     sides = {}
     for side in ("l", "r"):
         duty = trace[f"duty_{side}"]
-        sat = np.abs(duty) >= SATURATED
+        sat = np.abs(duty) >= DUTY_FULL
         held, since = final_run(t, sat)
         sides[side] = (held, float(np.sign(duty[-1])), float(np.mean(sat)), since)
     clipped = int(summary.get("clipped_duties") or 0)
@@ -120,12 +120,16 @@ def _saturation(trace, summary) -> dict | None:
     share_clipped = clipped / max(1, t.size)
     if held < SATURATION_MIN and fraction < SATURATION_SHARE and share_clipped < SATURATION_SHARE:
         return None
-    both = sides["l"][0] >= SATURATION_MIN and sides["r"][0] >= SATURATION_MIN
-    side = "both sides" if both else ("left" if sides["l"][0] >= sides["r"][0] else "right")
+    both = abs(sides["l"][0] - sides["r"][0]) < 1e-9 or min(sides["l"][0], sides["r"][0]) >= \
+        0.9 * held  # the same stretch on both sides, to a tick or two
     key = "l" if sides["l"][0] >= sides["r"][0] else "r"
+    other = "r" if key == "l" else "l"
+    names = {"l": "left", "r": "right"}
+    side = "both sides" if both else names[key]
     sign = "+1" if sides[key][1] > 0 else "-1"
-    text = (f"duty at {sign} on {side} for the last {held:.2f} s (from {sides[key][3]:.2f} s): "
-            "the motors gave all they had" if held >= SATURATION_MIN else
+    also = "" if both else f", the {names[other]} {sides[other][0]:.2f} s"
+    text = (f"duty at {sign} on {side} for the last {held:.2f} s (from {sides[key][3]:.2f} s"
+            f"{also}): the motors gave all they had" if held >= SATURATION_MIN else
             f"duty at ±1 in {100 * fraction:.0f} % of ticks")
     raw = [trace[c] for c in ("duty_raw_l", "duty_raw_r") if c in trace]
     asked = float(np.nanmax(np.abs(np.concatenate(raw)))) if raw else None
@@ -205,8 +209,8 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
     reference = float(np.median(trace["pitch_rad"][before])) if before.any() else 0.0
     linear = np.abs(pitch) <= OSC_LINEAR_TILT
     cut = int(np.argmin(linear)) if not linear.all() else pitch.size
-    saturated = ((np.abs(trace["duty_l"][window]) >= SATURATED)
-                 | (np.abs(trace["duty_r"][window]) >= SATURATED))
+    saturated = ((np.abs(trace["duty_l"][window]) >= DUTY_FULL)
+                 | (np.abs(trace["duty_r"][window]) >= DUTY_FULL))
     unsaturated = int(np.argmax(saturated)) if saturated.any() else pitch.size
     swing = None
     for end in sorted({min(cut, unsaturated), cut}):  # the linear part first
@@ -233,8 +237,8 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
                 growth_per_cycle=per_cycle, half_cycles=swing["half_cycles"],
                 start_s=swing["start_s"], delay_s=delay, delay_phase_deg=phase))
     # a divergence is read where the motors still had something to give
-    free = ((np.abs(trace["duty_l"][window]) < SATURATED)
-            & (np.abs(trace["duty_r"][window]) < SATURATED)
+    free = ((np.abs(trace["duty_l"][window]) < DUTY_FULL)
+            & (np.abs(trace["duty_r"][window]) < DUTY_FULL)
             & (np.abs(wheel_rates(trace, spec)[:, window]).max(axis=0)
                < TOP_SPEED_FRACTION * speed_limit(trace, spec)[window]))
     last_free = int(np.nonzero(free)[0][-1]) + 1 if free.any() else 0
