@@ -10,6 +10,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from sandbox.analysis import PlanarParams, duty_input_model, fall_time_constant, zoh_discretise
@@ -239,6 +241,28 @@ def test_only_falls_and_failed_tests_are_diagnosed():
     assert not needs_diagnosis("completed", None)
     assert not needs_diagnosis("controller_error", {"passed": False})
     assert not needs_diagnosis("interrupted", None)
+
+
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(n=st.integers(0, 300), seed=st.integers(0, 2**16), scale=st.floats(1e-6, 3.0),
+       status=st.sampled_from(["fell", "completed"]), fell_at=st.none() | st.floats(0, 2))
+def test_any_trace_gives_plain_findings(shelf, n, seed, scale, status, fell_at):
+    """Random traces of any length never crash the diagnosis; every finding is plain,
+    JSON-ready data with a known code."""
+    rng = np.random.default_rng(seed)
+    columns = {name: scale * rng.standard_normal(n) for name in (
+        "pitch_rad", "speed_m_s", "duty_l", "duty_r", "gyro_y_rad_s", "x_m", "wheel_l_rad")}
+    trace = synthetic(n, **columns)
+    verdict = {"passed": False, "checks": [{"label": "position held", "passed": False,
+                                            "limit_value": 0.5}],
+               "disturbance_times_s": [0.5]}
+    found = diagnose(trace, {"status": status, "fell_at_s": fell_at}, shelf,
+                     marks=[[0.5, "push 0.1 N*s"]], test_result=verdict)
+    known = {"tilt_limit", "frame_touched", "wheel_lifted", "saturated", "top_speed",
+             "oscillation", "divergence", "runaway", "sensor_clipped", "disturbance"}
+    assert all(f["code"] in known and isinstance(f["text"], str) for f in found)
+    json.dumps([f["figures"] for f in found], allow_nan=True)
 
 
 def test_report_shows_the_diagnosis(tmp_path):

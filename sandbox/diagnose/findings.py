@@ -277,8 +277,10 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
                 end_s=rise["end_s"], speed_m_s=reached, top_speed_m_s=top, travel_m=travel,
                 tilt_growth_rate_1_s=None if grow is None else grow["growth_rate_1_s"]))
             return out
+    if upright < 3:
+        return out
     x = trace["x_m"][window][:upright] - trace["x_m"][window][0]
-    drift = steady_growth(t[:upright], x) if upright >= 3 else None
+    drift = steady_growth(t[:upright], x)
     travel = float(x[-1])
     far = drift_limit if drift_limit is not None else RUNAWAY_MIN_TRAVEL * spec.wheels.radius
     if (drift is not None and drift["end_s"] - drift["start_s"] >= RUNAWAY_MIN_DURATION
