@@ -149,11 +149,14 @@ def touching_tilt(spec) -> float:
     corners = np.array([(b.at[0] + sx * b.size[0] / 2, b.at[2] + sz * b.size[2] / 2)
                         for b in spec.figures.boxes for sx in (-1, 1) for sz in (-1, 1)])
     tilts = np.radians(np.arange(0.0, 90.01, 0.1))
-    for tilt in tilts:
-        for sign in (1.0, -1.0):
-            s, c = math.sin(sign * tilt), math.cos(tilt)
-            if np.any(-corners[:, 0] * s + corners[:, 1] * c <= -radius):
-                return float(tilt)
+    lowest = np.full(tilts.shape, np.inf)
+    for sign in (1.0, -1.0):  # leaning forward or back: the lowest corner's height
+        heights = (-corners[:, :1] * np.sin(sign * tilts)[None, :]
+                   + corners[:, 1:] * np.cos(tilts)[None, :])
+        lowest = np.minimum(lowest, heights.min(axis=0))
+    touching = np.nonzero(lowest <= -radius)[0]
+    if touching.size:
+        return float(tilts[touching[0]])
     return math.pi / 2
 
 
