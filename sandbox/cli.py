@@ -311,11 +311,21 @@ def _print_run(result, folder: Path | None) -> None:
     typer.echo(table(rows))
     if result.message and result.status != "completed":
         typer.echo(result.message)
+    _print_diagnosis(s.get("diagnosis"))
     if folder is not None:
         files = [name for name in ("trace.csv", "summary.json", "run.yaml", "plots.png",
                                    "video.mp4", "controller_error.txt")
                  if (folder / name).is_file()]
         typer.echo(f"results in {folder}/ ({', '.join(files)})")
+
+
+def _print_diagnosis(findings: list[dict] | None) -> None:
+    """The findings of a run that fell or failed, most likely cause first."""
+    if not findings:
+        return
+    typer.echo("why (most likely first; figures in summary.json under diagnosis):")
+    for number, item in enumerate(findings, 1):
+        typer.echo(f"  {number}. [{item['code']}] {item['text']}")
 
 
 def _exit_code(result) -> int:
@@ -435,6 +445,10 @@ def suite(
                      "-" if f["drift_m"] is None else f"{f['drift_m']:+.2f}", failed or "-"))
     typer.echo(table(rows, ("test", "verdict", "status", "max tilt deg", "drift m",
                             "failed checks")))
+    for test in result["tests"]:
+        if not test["passed"] and test.get("diagnosis"):
+            first = test["diagnosis"][0]
+            typer.echo(f"{test['name']}: [{first['code']}] {first['text']}")
     passed = sum(t["passed"] for t in result["tests"])
     typer.echo(f"{passed} of {len(rows)} passed; report: {folder / 'report.html'}")
     raise typer.Exit(EXIT_OK if result["passed"] else EXIT_FELL)
@@ -762,5 +776,7 @@ def margins(
                    "with one seed. The real robot has imperfections no file lists: keep some "
                    "of each margin in hand.")
     raise typer.Exit(EXIT_OK if result.baseline_passed else EXIT_FELL)
+
+
 if __name__ == "__main__":
     app()

@@ -364,13 +364,18 @@ def judge(plan: TestPlan, status: str, trace: dict[str, np.ndarray],
     if c.recover_within is not None and timeline.disturbances and t.size:
         times = sorted(timeline.disturbances)
         worst = 0.0
+        unsettled = None  # the first disturbance the tilt never settled after
         for i, start in enumerate(times):
             end = times[i + 1] if i + 1 < len(times) else float(t[-1]) + 1e-9
             recovery = recovery_after(t, pitch, start, end, c.recover_band)
             worst = math.inf if recovery is None else max(worst, recovery)
+            if recovery is None and unsettled is None:
+                unsettled = (start, end)
         label = f"back within {math.degrees(c.recover_band):g} deg after each disturbance"
         checks.append(_check(label, None if math.isinf(worst) else worst, c.recover_within,
                              worst <= c.recover_within and status == "completed", "s"))
+        if unsettled is not None:
+            checks[-1]["measured"] = unsettled_text(t, pitch, *unsettled, c.recover_band)
     if c.max_drift is not None and t.size:
         expected = _expected_distance(t, timeline)
         drift = float(np.max(np.abs(trace["x_m"] - expected)))
@@ -408,6 +413,20 @@ def recovery_after(t: np.ndarray, pitch: np.ndarray, start: float, end: float,
     if last + 1 >= times.size:
         return None
     return float(times[last + 1] - start)
+
+
+def unsettled_text(t: np.ndarray, pitch: np.ndarray, start: float, end: float,
+                   band: float) -> str:
+    """What a failed recovery measured: how far outside the band the tilt still was."""
+    before = (t >= start - 0.5) & (t < start)
+    reference = float(np.median(pitch[before])) if before.any() else 0.0
+    inside = np.nonzero((t >= start) & (t < end))[0]
+    if inside.size == 0:
+        return f"no samples after the disturbance at {start:.2f} s"
+    last = int(inside[-1])
+    off = math.degrees(abs(float(pitch[last]) - reference) - band)
+    return (f"not back: {off:.2g} deg outside the band at {t[last]:.2f} s "
+            f"(after the disturbance at {start:.2f} s)")
 
 
 def _setpoint_speed(t: np.ndarray, timeline: Timeline) -> np.ndarray:

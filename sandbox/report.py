@@ -62,6 +62,10 @@ def render_report(folder: Path, suite: dict[str, Any]) -> str:
             parts.append(f'<p class="small">{e(test["message"])}</p>')
         parts.append("<table><tr><th>check</th><th>measured</th><th>limit</th><th></th></tr>"
                      f"{checks}</table>")
+        if test.get("diagnosis"):  # why it fell or failed, most likely cause first
+            items = "".join(f"<li><b>{e(d['code'])}</b>: {e(d['text'])}</li>"
+                            for d in test["diagnosis"])
+            parts.append(f'<p>Why (most likely first):</p><ol class="diagnosis">{items}</ol>')
         video = _data_uri(sub / "video.mp4", "video/mp4")
         if video:
             parts.append(f'<video controls muted src="{video}"></video>')

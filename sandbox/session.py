@@ -47,10 +47,11 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
     result = run(spec, settings, folder=folder, ground=ground, timeline=timeline,
                  extra_record=extra)
     if plan is not None:
-        from .record import write_json
-
         result.summary["test_result"] = plan.judge(result, timeline)
         result.summary["marks"] = [list(m) for m in timeline.marks]
+    if add_diagnosis(result, spec, settings, plan) or plan is not None:
+        from .record import write_json
+
         if folder is not None:
             write_json(folder / "summary.json", result.summary)
     if folder is None:
@@ -65,3 +66,22 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
 
         render_run(folder)
     return result
+
+
+def add_diagnosis(result: RunResult, spec: RobotSpec, settings: RunSettings, plan=None) -> bool:
+    """Put ``diagnosis`` in the summary of a run that fell or failed its test; True if added.
+
+    A controller error or an interrupted run gets none: its message says what happened.
+    """
+    from .diagnose import diagnose, needs_diagnosis
+
+    summary = result.summary
+    test_result = summary.get("test_result")
+    if not needs_diagnosis(result.status, test_result):
+        return False
+    flat = plan is None or (not plan.ground_spec.slope and not plan.ground_spec.steps
+                            and plan.ground_spec.rough is None)
+    summary["diagnosis"] = diagnose(result.trace, summary, spec, marks=summary.get("marks", ()),
+                                    test_result=test_result, settings=settings,
+                                    flat_floor=flat)
+    return True

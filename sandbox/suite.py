@@ -67,6 +67,7 @@ def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
         "tests": [{"name": r["test"], "status": r["status"], "passed": _passed(r),
                    "folder": r["folder"], "message": r["message"],
                    "checks": r["summary"].get("test_result", {}).get("checks", []),
+                   "diagnosis": r["summary"].get("diagnosis", []),
                    "figures": {k: r["summary"].get(k) for k in (
                        "max_abs_pitch_deg", "rms_pitch_deg", "drift_m", "saturation_fraction",
                        "fell_at_s", "duration_s")}}

@@ -343,12 +343,17 @@ def test_judge_fails_a_slow_recovery_and_a_fall():
     assert fell["passed"] is False
 
 
-def test_judge_never_settled_reports_no_figure():
-    """Never back inside the band before the run ends: measured '-', value None, fail."""
+def test_judge_never_settled_says_how_far_outside_the_band():
+    """Never back inside the band before the run ends: value None, fail, and the measured
+    text gives how far outside the band the tilt still was at the end (0.1 rad = 5.73°
+    off, less the 2° band: 3.7° outside)."""
     pitch = bump(T, 2.0, 20.0, 0.1)
     check = by_label(judge(make_plan(), "completed", make_trace(pitch),
                            make_timeline([2.0])))[RECOVERY]
-    assert check["value"] is None and check["measured"] == "-" and not check["passed"]
+    assert check["value"] is None and not check["passed"]
+    off = math.degrees(0.1) - 2.0
+    assert check["measured"] == (f"not back: {off:.2g} deg outside the band at {T[-1]:.2f} s "
+                                 "(after the disturbance at 2.00 s)")
 
 
 def test_judge_without_disturbances_or_recovery_limit_has_no_recovery_check():
