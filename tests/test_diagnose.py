@@ -375,10 +375,11 @@ def test_duty_two_is_saturation_first():
 
 
 def test_low_frame_touches_the_floor_before_the_tilt_limit():
-    """A frame 25 mm below the axle (wheel radius 34 mm) meets a flat floor at the tilt its
+    """A frame reaching 25 mm below the axle (wheel radius 34 mm; its top kept where the
+    parts are) meets a flat floor at the tilt its
     corner geometry gives, far under a 80° fall limit: frame_touched at that tilt."""
     spec, result = pd_run({}, controller=CONSTANT, tilt_deg=3.0, duration=3.0, overrides={
-        "body.frame.bottom": "-25 mm"}, fall_limit_deg=80.0)
+        "body.frame.bottom": "-25 mm", "body.frame.height": "235 mm"}, fall_limit_deg=80.0)
     assert result.status == "fell"
     ending = next(f for f in result.summary["diagnosis"] if f["code"] == "frame_touched")
     expected = math.degrees(touching_tilt(spec))
