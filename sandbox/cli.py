@@ -571,8 +571,8 @@ def sweep(
     robot: RobotArg,
     controller: ControllerArg,
     vary: Annotated[list[str] | None, typer.Option(
-        "--vary", help="KEY=START:STOP:N (or KEY=A,B,C); any key --set takes, SI numbers. "
-        "Several make a grid.")] = None,
+        "--vary", help="KEY=A,B,C (these values) or KEY=START..STOP,n=N (N values, both ends "
+        "included); any key --set takes, SI numbers. Several make a grid.")] = None,
     samples: Annotated[int, typer.Option(
         "--samples", help="Monte Carlo: robots drawn within the --spread tolerances.")] = 0,
     spread: Annotated[list[str] | None, typer.Option(
@@ -600,7 +600,9 @@ def sweep(
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
     if not vary and not samples:
-        raise BadInput("give at least one --vary KEY=START:STOP:N, or --samples N with --spread")
+        raise BadInput("give at least one --vary KEY=A,B,C or KEY=START..STOP,n=N, or "
+                       "--samples N with --spread")
+    _show_axes(vary or [])
     progress = _ProgressLine("runs")
     try:
         report = sweep_command(spec, settings, vary=vary or [], spread=spread or [],
@@ -611,6 +613,17 @@ def sweep(
         progress.close()
     typer.echo(report.text())
     raise typer.Exit(EXIT_INTERRUPTED if report.interrupted else EXIT_OK)
+
+
+def _show_axes(vary: list[str]) -> None:
+    """Print each --vary axis's values (and any deprecation note) before the runs start."""
+    from .sweep.plan import axis_text, parse_vary, vary_form
+
+    for text in vary:
+        note = vary_form(text).note
+        if note:
+            typer.echo(f"note: {note}", err=True)
+        typer.echo(f"axis {axis_text(parse_vary(text))}")
 
 
 @app.command()
@@ -659,3 +672,7 @@ def tune(
     if result.stopped == "interrupted":
         raise typer.Exit(EXIT_INTERRUPTED)
     raise typer.Exit(EXIT_OK if result.after.passed else EXIT_FELL)
+
+
+if __name__ == "__main__":
+    app()
