@@ -30,6 +30,26 @@ app = typer.Typer(
 EXIT_OK, EXIT_FELL, EXIT_BAD_INPUT, EXIT_CONTROLLER = 0, 1, 2, 3
 
 
+def _hide_flag_types() -> None:
+    """Show no type for plain on/off flags in --help (typer labels them ``<bool>``)."""
+    from typer.core import TyperOption
+
+    shown = TyperOption.display_type_rich
+    if getattr(shown, "hides_flags", False):
+        return
+
+    def display_type_rich(self, ctx):
+        if self.is_flag and self.metavar is None:
+            return None
+        return shown(self, ctx)
+
+    display_type_rich.hides_flags = True
+    TyperOption.display_type_rich = display_type_rich
+
+
+_hide_flag_types()
+
+
 class BadInput(ValueError):
     """An argument the command line cannot use (exit code 2)."""
 
@@ -252,6 +272,8 @@ def _print_run(result, folder: Path | None) -> None:
          else f"{100 * s['saturation_fraction']:.1f} % of ticks"),
         ("real-time factor", "-" if not s["realtime_factor"] else f"{s['realtime_factor']:.1f}x"),
     ]
+    rows.insert(-1, ("duties clipped", _clipped_text(s.get("clipped_duties"),
+                                                     result.trace["t_s"].size)))
     test = s.get("test_result")
     if test:
         rows.append(("test", f"{test['name']}: {'PASSED' if test['passed'] else 'FAILED'}"))
@@ -263,10 +285,21 @@ def _print_run(result, folder: Path | None) -> None:
     if result.message and result.status != "completed":
         typer.echo(result.message)
     if folder is not None:
-        files = [name for name in ("trace.csv", "summary.json", "run.yaml", "plots.png",
-                                   "video.mp4", "controller_error.txt")
+        files = [name for name in ("trace.csv", "summary.json", "run.yaml", "robot.yaml",
+                                   "robot.urdf", "plots.png", "video.mp4",
+                                   "controller_error.txt")
                  if (folder / name).is_file()]
         typer.echo(f"results in {folder}/ ({', '.join(files)})")
+
+
+def _clipped_text(clipped: int | None, ticks: int) -> str:
+    """How many ticks' duties came back outside [-1, 1] and were clipped."""
+    if clipped is None:
+        return "-"
+    if not clipped:
+        return "none"
+    share = f" ({100 * clipped / ticks:.1f} %)" if ticks else ""
+    return f"{clipped} of {ticks} ticks{share}: the controller asked for more than full duty"
 
 
 def _exit_code(result) -> int:
@@ -373,7 +406,7 @@ def suite(
     load_controller_class(controller)  # a broken script stops here, before any worker starts
     label = _controller_label(controller)
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
-    with typer.progressbar(length=len(BUILTIN_NAMES), label="tests", file=sys.stderr) as bar:
+    with _progress_bar(len(BUILTIN_NAMES), "tests") as bar:
         result = run_suite(spec, settings, folder, video=video, label=label, workers=workers,
                            progress=lambda _name: bar.update(1))
     rows = []
@@ -411,11 +444,41 @@ def render(
     typer.echo(f"wrote {path}")
 
 
+class _NoBar:
+    """Stands in for a progress bar where stderr is not a terminal (logs, pipes, CI):
+    a bar there leaves its label behind, without a newline, before the results."""
+
+    length = 0
+
+    def __enter__(self) -> _NoBar:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        return None
+
+    def update(self, steps: int) -> None:
+        return None
+
+
+def _progress_bar(length: int, label: str):
+    """A progress bar on stderr when it is a terminal, else nothing."""
+    if not _stderr_is_terminal():
+        return _NoBar()
+    return typer.progressbar(length=length, label=label, file=sys.stderr)
+
+
+def _stderr_is_terminal() -> bool:
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):  # replaced or closed stream
+        return False
+
+
 def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
                      workers: int | None) -> Path:
     from .render import render_run
 
-    with typer.progressbar(length=1, label="frames", file=sys.stderr) as bar:
+    with _progress_bar(1, "frames") as bar:
         state = {"done": 0}
 
         def progress(done: int, total: int) -> None:
@@ -546,6 +609,8 @@ class _ProgressLine:
 
     def __call__(self, done: int, total: int) -> None:
         rate, left = self.clock.update(done, total)
+        if not _stderr_is_terminal():  # no carriage-return lines in logs and pipes
+            return
         width = 24
         filled = int(width * done / total) if total else width
         bar = "#" * filled + "-" * (width - filled)
