@@ -109,6 +109,8 @@ ConfigOption = Annotated[Path | None, typer.Option(
 SeedOption = Annotated[int, typer.Option("--seed", help="Seed for every random source.")]
 WorkersOption = Annotated[int | None, typer.Option(
     "--workers", help="Parallel processes (default: all cores).")]
+CAMERA_HELP = ("Video camera: side (forward to the right), front, three-quarter, or follow "
+               "(behind the robot, turning with it).")
 RateOption = Annotated[float | None, typer.Option(
     "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")]
 
@@ -339,10 +341,12 @@ def run(
         "--out", help="Run folder (default runs/<robot>-<controller>-<test>-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Also render video.mp4.")] = False,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
+    camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
     """One headless run of a controller on a robot; writes a run folder."""
     from .session import run_once
 
+    _check_camera(camera)
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
     settings = replace(settings, physics_dt=physics_step / 1000.0, latency=latency / 1000.0,
@@ -354,9 +358,16 @@ def run(
                       label=_controller_label(controller), duration_given=duration is not None,
                       video=False, plots=plots)
     if video and result.trace["t_s"].size > 1:
-        _render_with_bar(result.folder, 30.0, (640, 480), None)
+        _render_with_bar(result.folder, 30.0, (640, 480), None, camera)
     _print_run(result, result.folder)
     raise typer.Exit(_exit_code(result))
+
+
+def _check_camera(camera: str) -> None:
+    from .render.frames import CAMERAS
+
+    if camera not in CAMERAS:
+        raise BadInput(f"--camera {camera!r}: choose one of {', '.join(CAMERAS)}")
 
 
 def _settings_from(controller: str, config: dict, duration: float | None, tilt: float,
@@ -432,15 +443,17 @@ def render(
         "--size", help="WIDTHxHEIGHT in pixels, each divisible by 16.")] = "640x480",
     workers: Annotated[int | None, typer.Option(
         "--workers", help="Parallel render processes (default: all cores).")] = None,
+    camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
     """Render video.mp4 of a recorded run by replaying its trace."""
+    _check_camera(camera)
     if not (run_dir / "trace.csv").is_file():
         raise BadInput(f"{run_dir}: not a run folder (no trace.csv)")
     try:
         width, height = (int(v) for v in size.lower().split("x"))
     except ValueError:
         raise BadInput(f"--size {size!r}: expected WIDTHxHEIGHT, e.g. 640x480") from None
-    path = _render_with_bar(run_dir, fps, (width, height), workers)
+    path = _render_with_bar(run_dir, fps, (width, height), workers, camera)
     typer.echo(f"wrote {path}")
 
 
@@ -475,7 +488,7 @@ def _stderr_is_terminal() -> bool:
 
 
 def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
-                     workers: int | None) -> Path:
+                     workers: int | None, camera: str = "side") -> Path:
     from .render import render_run
 
     with _progress_bar(1, "frames") as bar:
@@ -486,7 +499,8 @@ def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
             bar.update(done - state["done"])
             state["done"] = done
 
-        return render_run(run_dir, fps=fps, size=size, workers=workers, progress=progress)
+        return render_run(run_dir, fps=fps, size=size, workers=workers, progress=progress,
+                          camera=camera)
 
 
 def _examples_root() -> Path:
