@@ -405,6 +405,9 @@ def suite(
     out: Annotated[Path | None, typer.Option(
         "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Render a video of every test.")] = False,
+    plots: Annotated[bool, typer.Option(
+        "--plots", help="Also write each test's plots.png (report.html has its own charts).")
+    ] = False,
 ) -> None:
     """Run every built-in disturbance test; a pass/fail table, suite.json and report.html."""
     from .control import load_controller_class
@@ -419,7 +422,7 @@ def suite(
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
     with _progress_bar(len(BUILTIN_NAMES), "tests") as bar:
         result = run_suite(spec, settings, folder, video=video, label=label, workers=workers,
-                           progress=lambda _name: bar.update(1))
+                           progress=lambda _name: bar.update(1), plots=plots)
     rows = []
     for test in result["tests"]:
         failed = "; ".join(c["label"] for c in test["checks"] if not c["passed"])
