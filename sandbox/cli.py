@@ -34,9 +34,9 @@ def _hide_flag_types() -> None:
     """Show no type for plain on/off flags in --help (typer labels them ``<bool>``)."""
     from typer.core import TyperOption
 
-    shown = TyperOption.display_type_rich
-    if getattr(shown, "hides_flags", False):
-        return
+    shown = getattr(TyperOption, "display_type_rich", None)
+    if shown is None or getattr(shown, "hides_flags", False):
+        return  # another typer: leave its help as it is
 
     def display_type_rich(self, ctx):
         if self.is_flag and self.metavar is None:
