@@ -30,6 +30,26 @@ app = typer.Typer(
 EXIT_OK, EXIT_FELL, EXIT_BAD_INPUT, EXIT_CONTROLLER = 0, 1, 2, 3
 
 
+def _hide_flag_types() -> None:
+    """Show no type for plain on/off flags in --help (typer labels them ``<bool>``)."""
+    from typer.core import TyperOption
+
+    shown = getattr(TyperOption, "display_type_rich", None)
+    if shown is None or getattr(shown, "hides_flags", False):
+        return  # another typer: leave its help as it is
+
+    def display_type_rich(self, ctx):
+        if self.is_flag and self.metavar is None:
+            return None
+        return shown(self, ctx)
+
+    display_type_rich.hides_flags = True
+    TyperOption.display_type_rich = display_type_rich
+
+
+_hide_flag_types()
+
+
 class BadInput(ValueError):
     """An argument the command line cannot use (exit code 2)."""
 
@@ -89,6 +109,8 @@ ConfigOption = Annotated[Path | None, typer.Option(
 SeedOption = Annotated[int, typer.Option("--seed", help="Seed for every random source.")]
 WorkersOption = Annotated[int | None, typer.Option(
     "--workers", help="Parallel processes (default: all cores).")]
+CAMERA_HELP = ("Video camera: side (forward to the right), front, three-quarter, or follow "
+               "(behind the robot, turning with it).")
 RateOption = Annotated[float | None, typer.Option(
     "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")]
 
@@ -301,6 +323,8 @@ def _print_run(result, folder: Path | None) -> None:
          else f"{100 * s['saturation_fraction']:.1f} % of ticks"),
         ("real-time factor", "-" if not s["realtime_factor"] else f"{s['realtime_factor']:.1f}x"),
     ]
+    rows.insert(-1, ("duties clipped", _clipped_text(s.get("clipped_duties"),
+                                                     result.trace["t_s"].size)))
     test = s.get("test_result")
     if test:
         rows.append(("test", f"{test['name']}: {'PASSED' if test['passed'] else 'FAILED'}"))
@@ -313,8 +337,9 @@ def _print_run(result, folder: Path | None) -> None:
         typer.echo(result.message)
     _print_diagnosis(s.get("diagnosis"))
     if folder is not None:
-        files = [name for name in ("trace.csv", "summary.json", "run.yaml", "plots.png",
-                                   "video.mp4", "controller_error.txt")
+        files = [name for name in ("trace.csv", "summary.json", "run.yaml", "robot.yaml",
+                                   "robot.urdf", "plots.png", "video.mp4",
+                                   "controller_error.txt")
                  if (folder / name).is_file()]
         typer.echo(f"results in {folder}/ ({', '.join(files)})")
 
@@ -326,6 +351,14 @@ def _print_diagnosis(findings: list[dict] | None) -> None:
     typer.echo("why (most likely first; figures in summary.json under diagnosis):")
     for number, item in enumerate(findings, 1):
         typer.echo(f"  {number}. [{item['code']}] {item['text']}")
+def _clipped_text(clipped: int | None, ticks: int) -> str:
+    """How many ticks' duties came back outside [-1, 1] and were clipped."""
+    if clipped is None:
+        return "-"
+    if not clipped:
+        return "none"
+    share = f" ({100 * clipped / ticks:.1f} %)" if ticks else ""
+    return f"{clipped} of {ticks} ticks{share}: the controller asked for more than full duty"
 
 
 def _exit_code(result) -> int:
@@ -365,10 +398,12 @@ def run(
         "--out", help="Run folder (default runs/<robot>-<controller>-<test>-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Also render video.mp4.")] = False,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
+    camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
     """One headless run of a controller on a robot; writes a run folder."""
     from .session import run_once
 
+    _check_camera(camera)
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
     settings = replace(settings, physics_dt=physics_step / 1000.0, latency=latency / 1000.0,
@@ -380,9 +415,16 @@ def run(
                       label=_controller_label(controller), duration_given=duration is not None,
                       video=False, plots=plots)
     if video and result.trace["t_s"].size > 1:
-        _render_with_bar(result.folder, 30.0, (640, 480), None)
+        _render_with_bar(result.folder, 30.0, (640, 480), None, camera)
     _print_run(result, result.folder)
     raise typer.Exit(_exit_code(result))
+
+
+def _check_camera(camera: str) -> None:
+    from .render.frames import CAMERAS
+
+    if camera not in CAMERAS:
+        raise BadInput(f"--camera {camera!r}: choose one of {', '.join(CAMERAS)}")
 
 
 def _settings_from(controller: str, config: dict, duration: float | None, tilt: float,
@@ -421,6 +463,9 @@ def suite(
     out: Annotated[Path | None, typer.Option(
         "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Render a video of every test.")] = False,
+    plots: Annotated[bool, typer.Option(
+        "--plots", help="Also write each test's plots.png (report.html has its own charts).")
+    ] = False,
 ) -> None:
     """Run every built-in disturbance test; a pass/fail table, suite.json and report.html."""
     from .control import load_controller_class
@@ -433,9 +478,9 @@ def suite(
     load_controller_class(controller)  # a broken script stops here, before any worker starts
     label = _controller_label(controller)
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
-    with typer.progressbar(length=len(BUILTIN_NAMES), label="tests", file=sys.stderr) as bar:
+    with _progress_bar(len(BUILTIN_NAMES), "tests") as bar:
         result = run_suite(spec, settings, folder, video=video, label=label, workers=workers,
-                           progress=lambda _name: bar.update(1))
+                           progress=lambda _name: bar.update(1), plots=plots)
     rows = []
     for test in result["tests"]:
         failed = "; ".join(c["label"] for c in test["checks"] if not c["passed"])
@@ -463,23 +508,55 @@ def render(
         "--size", help="WIDTHxHEIGHT in pixels, each divisible by 16.")] = "640x480",
     workers: Annotated[int | None, typer.Option(
         "--workers", help="Parallel render processes (default: all cores).")] = None,
+    camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
     """Render video.mp4 of a recorded run by replaying its trace."""
+    _check_camera(camera)
     if not (run_dir / "trace.csv").is_file():
         raise BadInput(f"{run_dir}: not a run folder (no trace.csv)")
     try:
         width, height = (int(v) for v in size.lower().split("x"))
     except ValueError:
         raise BadInput(f"--size {size!r}: expected WIDTHxHEIGHT, e.g. 640x480") from None
-    path = _render_with_bar(run_dir, fps, (width, height), workers)
+    path = _render_with_bar(run_dir, fps, (width, height), workers, camera)
     typer.echo(f"wrote {path}")
 
 
+class _NoBar:
+    """Stands in for a progress bar where stderr is not a terminal (logs, pipes, CI):
+    a bar there leaves its label behind, without a newline, before the results."""
+
+    length = 0
+
+    def __enter__(self) -> _NoBar:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        return None
+
+    def update(self, steps: int) -> None:
+        return None
+
+
+def _progress_bar(length: int, label: str):
+    """A progress bar on stderr when it is a terminal, else nothing."""
+    if not _stderr_is_terminal():
+        return _NoBar()
+    return typer.progressbar(length=length, label=label, file=sys.stderr)
+
+
+def _stderr_is_terminal() -> bool:
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):  # replaced or closed stream
+        return False
+
+
 def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
-                     workers: int | None) -> Path:
+                     workers: int | None, camera: str = "side") -> Path:
     from .render import render_run
 
-    with typer.progressbar(length=1, label="frames", file=sys.stderr) as bar:
+    with _progress_bar(1, "frames") as bar:
         state = {"done": 0}
 
         def progress(done: int, total: int) -> None:
@@ -487,7 +564,8 @@ def _render_with_bar(run_dir: Path, fps: float, size: tuple[int, int],
             bar.update(done - state["done"])
             state["done"] = done
 
-        return render_run(run_dir, fps=fps, size=size, workers=workers, progress=progress)
+        return render_run(run_dir, fps=fps, size=size, workers=workers, progress=progress,
+                          camera=camera)
 
 
 def _examples_root() -> Path:
@@ -611,6 +689,8 @@ class _ProgressLine:
 
     def __call__(self, done: int, total: int) -> None:
         rate, left = self.clock.update(done, total)
+        if not _stderr_is_terminal():  # no carriage-return lines in logs and pipes
+            return
         width = 24
         filled = int(width * done / total) if total else width
         bar = "#" * filled + "-" * (width - filled)
@@ -636,9 +716,9 @@ def sweep(
     robot: RobotArg,
     controller: ControllerArg,
     vary: Annotated[list[str] | None, typer.Option(
-        "--vary", help="KEY=START:STOP:N (or KEY=A,B,C); any key --set takes, SI numbers or unit "
-        "strings as --set reads them (wheels.radius=30mm,35mm). "
-        "Several make a grid.")] = None,
+        "--vary", help="KEY=A,B,C (these values) or KEY=START..STOP,n=N (N values, both ends "
+        "included); any key --set takes, SI numbers or unit strings as --set reads them "
+        "(wheels.radius=30mm,35mm). Several make a grid.")] = None,
     samples: Annotated[int, typer.Option(
         "--samples", help="Monte Carlo: robots drawn within the --spread tolerances.")] = 0,
     spread: Annotated[list[str] | None, typer.Option(
@@ -667,7 +747,9 @@ def sweep(
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
     if not vary and not samples:
-        raise BadInput("give at least one --vary KEY=START:STOP:N, or --samples N with --spread")
+        raise BadInput("give at least one --vary KEY=A,B,C or KEY=START..STOP,n=N, or "
+                       "--samples N with --spread")
+    _show_axes(vary or [])
     progress = _ProgressLine("runs")
     try:
         report = sweep_command(spec, settings, vary=vary or [], spread=spread or [],
@@ -678,6 +760,17 @@ def sweep(
         progress.close()
     typer.echo(report.text())
     raise typer.Exit(EXIT_INTERRUPTED if report.interrupted else EXIT_OK)
+
+
+def _show_axes(vary: list[str]) -> None:
+    """Print each --vary axis's values (and any deprecation note) before the runs start."""
+    from .sweep.plan import axis_text, parse_vary, vary_form
+
+    for text in vary:
+        note = vary_form(text).note
+        if note:
+            typer.echo(f"note: {note}", err=True)
+        typer.echo(f"axis {axis_text(parse_vary(text))}")
 
 
 @app.command()

@@ -37,8 +37,9 @@ def _number(value: Any, digits: int = 3) -> str:
     return "-" if value is None else f"{value:.{digits}g}"
 
 
-def render_report(folder: Path, suite: dict[str, Any]) -> str:
-    """The HTML text of a suite's report."""
+def render_report(folder: Path, suite: dict[str, Any],
+                  charts: dict[str, str] | None = None) -> str:
+    """The HTML text of a suite's report; ``charts`` maps test names to inline SVG."""
     e = html.escape
     rows = []
     for test in suite["tests"]:
@@ -58,14 +59,17 @@ def render_report(folder: Path, suite: dict[str, Any]) -> str:
             f"<td>{e(str(c['limit']))}</td><td>{_verdict(c['passed'])}</td></tr>"
             for c in test["checks"])
         parts = [f'<h2 id="{e(test["name"])}">{e(test["name"])} {_verdict(test["passed"])}</h2>']
+        parts.append(_test_does(suite.get("test_facts", {}).get(test["name"])))
         if test.get("message"):
             parts.append(f'<p class="small">{e(test["message"])}</p>')
-        parts.append("<table><tr><th>check</th><th>measured</th><th>limit</th><th></th></tr>"
+        parts.append(f'<table class="checks" id="checks-{e(test["name"])}"><tr><th>check</th>'
+                     "<th>measured</th><th>limit</th><th>verdict</th></tr>"
                      f"{checks}</table>")
         if test.get("diagnosis"):  # why it fell or failed, most likely cause first
             items = "".join(f"<li><b>{e(d['code'])}</b>: {e(d['text'])}</li>"
                             for d in test["diagnosis"])
             parts.append(f'<p>Why (most likely first):</p><ol class="diagnosis">{items}</ol>')
+        parts.append((charts or {}).get(test["name"], ""))
         video = _data_uri(sub / "video.mp4", "video/mp4")
         if video:
             parts.append(f'<video controls muted src="{video}"></video>')
@@ -82,6 +86,7 @@ def render_report(folder: Path, suite: dict[str, Any]) -> str:
 <h1>Disturbance suite: {e(suite['robot'])} with {e(Path(suite['controller']).name)}</h1>
 <p>{passed} of {len(suite['tests'])} tests passed {_verdict(suite['passed'])}.
 <span class="small">Seed {suite['seed']}. Angles in degrees, distances in metres.</span></p>
+{_about(suite)}
 <table id="summary">
 <tr><th>test</th><th>verdict</th><th>status</th><th>max |tilt|</th><th>rms tilt</th>
 <th>drift</th><th>failed checks</th></tr>
@@ -92,7 +97,55 @@ def render_report(folder: Path, suite: dict[str, Any]) -> str:
 """
 
 
-def write_report(folder: Path, suite: dict[str, Any]) -> Path:
+def write_report(folder: Path, suite: dict[str, Any],
+                 charts: dict[str, str] | None = None) -> Path:
     path = folder / "report.html"
-    path.write_text(render_report(folder, suite), encoding="utf-8")
+    path.write_text(render_report(folder, suite, charts), encoding="utf-8")
     return path
+
+
+# --------------------------------------------------------------------- what was run
+
+
+def _rows(pairs) -> str:
+    e = html.escape
+    return "".join("<tr>" + "".join(f"<td>{e(str(v))}</td>" for v in row) + "</tr>"
+                   for row in pairs)
+
+
+def _about(suite: dict[str, Any]) -> str:
+    """The robot's key figures and the controller (file, class, hash, config, version)."""
+    parts = []
+    figures = suite.get("robot_figures")
+    if figures:
+        parts.append('<h2 id="robot">The robot</h2>'
+                     '<table id="robot-figures"><tr><th>figure</th><th>value</th>'
+                     f"<th>unit</th></tr>{_rows(figures)}</table>")
+    facts = suite.get("controller_facts")
+    if facts:
+        rows = [("script", facts.get("path", "")), ("class", facts.get("class", "")),
+                ("SHA-256", facts.get("sha256") or "-"),
+                ("upright version", facts.get("upright", ""))]
+        config = facts.get("config") or {}
+        rows += [(f"config.{k}", v) for k, v in sorted(config.items())]
+        if not config:
+            rows.append(("config", "none given: the script's own defaults"))
+        parts.append('<h2 id="controller">The controller</h2>'
+                     '<table id="controller-facts"><tr><th>item</th><th>value</th></tr>'
+                     f"{_rows(rows)}</table>")
+    if not parts:
+        return ""
+    return '<section id="about">' + "\n".join(parts) + "</section>" + (
+        '<h2 id="tests">The tests</h2>' if suite.get("test_facts") else "")
+
+
+def _test_does(facts: dict[str, Any] | None) -> str:
+    """What one test does: its description, floor and timeline."""
+    if not facts:
+        return ""
+    e = html.escape
+    events = "".join(f"<li>{e(text)}</li>" for text in facts.get("events", []))
+    return (f'<div class="does"><p>{e(facts.get("description", ""))} '
+            f'<span class="small">{facts.get("duration_s", 0):g} s on '
+            f'{e(facts.get("ground", ""))}.</span></p>'
+            + (f"<ul>{events}</ul>" if events else "") + "</div>")

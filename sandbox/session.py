@@ -60,7 +60,8 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
         from .plots import plot_run
 
         plot_run(result.trace, folder / "plots.png", title=f"{spec.name} - {label} - {test_name}",
-                 marks=timeline.marks if timeline is not None else ())
+                 marks=timeline.marks if timeline is not None else (),
+                 setpoints=timeline.setpoint_changes if timeline is not None else ())
     if video and result.trace["t_s"].size > 1:
         from .render import render_run
 

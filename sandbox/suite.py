@@ -20,31 +20,49 @@ from .runner import RunSettings
 
 
 def _run_test(spec_data: dict, settings: RunSettings, test: str, folder: Path,
-              video: bool, label: str) -> dict[str, Any]:
+              video: bool, label: str, plots: bool = False) -> dict[str, Any]:
     """One test in a worker process; returns its summary (JSON-ready)."""
     from .robot import robot_from_dict
     from .session import run_once
 
     spec = robot_from_dict(spec_data, "<suite robot>")
-    result = run_once(spec, settings, test=test, folder=folder, label=label, video=False)
+    result = run_once(spec, settings, test=test, folder=folder, label=label, video=False,
+                      plots=plots)
+    chart = _chart(spec, test, result)
     if video and result.trace["t_s"].size > 1:
         from .render import render_run
 
         render_run(folder, workers=1)
     return {"test": test, "folder": folder.name, "status": result.status,
-            "message": result.message, "summary": result.summary}
+            "message": result.message, "summary": result.summary, "chart": chart}
+
+
+def _chart(spec: RobotSpec, test: str, result) -> str:
+    """The report's small chart of one test, drawn where the trace already is."""
+    from .charts import chart_svg
+    from .events import builtin_tests
+    from .facts import setpoint_changes
+
+    plan = builtin_tests(spec).get(test)
+    return chart_svg(result.trace, result.summary.get("marks", ()),
+                     setpoint_changes(plan) if plan is not None else (), title=test)
 
 
 def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
               tests: tuple[str, ...] = BUILTIN_NAMES, workers: int | None = None,
               video: bool = False, label: str = "controller",
-              progress: Callable[[str], None] | None = None) -> dict[str, Any]:
-    """Run ``tests`` (built-in names) into ``folder``; write suite.json and report.html."""
+              progress: Callable[[str], None] | None = None,
+              plots: bool = False) -> dict[str, Any]:
+    """Run ``tests`` (built-in names) into ``folder``; write suite.json and report.html.
+
+    ``plots``: also write each test's plots.png (off by default: drawing them cost
+    a third of a suite; report.html draws its own small charts from the traces).
+    """
     folder.mkdir(parents=True, exist_ok=True)
     workers = max(1, min(workers or os.cpu_count() or 1, len(tests)))
     spec_data = spec.to_si_dict()
     results: dict[str, dict[str, Any]] = {}
-    jobs = {test: (spec_data, replace(settings), test, folder / test, video, label)
+    jobs = {test: (spec_data, replace(settings), test, folder / test, video, label, plots)
             for test in tests}
     if workers == 1:
         for test, args in jobs.items():
@@ -73,11 +91,23 @@ def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
                        "fell_at_s", "duration_s")}}
                   for r in ordered],
     }
+    suite.update(_about(spec, settings, tests))
     write_json(folder / "suite.json", suite)
     from .report import write_report
 
-    write_report(folder, suite)
+    write_report(folder, suite, charts={r["test"]: r.get("chart", "") for r in ordered})
     return suite
+
+
+def _about(spec: RobotSpec, settings: RunSettings, tests: tuple[str, ...]) -> dict[str, Any]:
+    """What the report says about the robot, the controller and each test."""
+    from .events import builtin_tests
+    from .facts import controller_facts, describe_test, robot_figures
+
+    plans = builtin_tests(spec)
+    return {"robot_figures": robot_figures(spec),
+            "controller_facts": controller_facts(settings.controller, settings.config),
+            "test_facts": {t: describe_test(plans[t]) for t in tests if t in plans}}
 
 
 def _passed(result: dict[str, Any]) -> bool:

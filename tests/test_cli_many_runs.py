@@ -27,7 +27,8 @@ def test_sweep_grid_writes_one_row_per_point(tmp_path):
     assert result.exit_code == 0, result.output
     with open(out / "results.csv", newline="") as handle:
         rows = list(csv.DictReader(handle))
-    assert [float(r["config.tilt_kp"]) for r in rows] == [10.0, 14.0]
+    assert rows[0]["index"] == "unit:", "a row of units under the column names"
+    assert [float(r["config.tilt_kp"]) for r in rows[1:]] == [10.0, 14.0]
     assert "runs passed" in result.output
 
 

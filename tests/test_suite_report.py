@@ -50,7 +50,7 @@ def passing_suite(spec, tmp_path_factory):
     folder = tmp_path_factory.mktemp("suite") / "shelf-cascade"
     done = []
     suite = run_suite(spec, RunSettings(controller=CASCADE), folder, tests=QUICK_TESTS,
-                      workers=2, label="cascade", progress=done.append)
+                      workers=2, label="cascade", progress=done.append, plots=True)
     return folder, suite, done
 
 
@@ -218,9 +218,9 @@ def captured_figures(monkeypatch):
     return figures
 
 
-def test_plots_have_six_panels_with_units(passing_suite, captured_figures, tmp_path):
-    """plots.png of a suite test, drawn again from its trace: six panels (tilt, pitch
-    rate, duty, speed, motor current, battery), every axis label with its unit in
+def test_plots_have_seven_panels_with_units(passing_suite, captured_figures, tmp_path):
+    """plots.png of a suite test, drawn again from its trace: seven panels (tilt, position,
+    pitch rate, duty, speed, motor current, battery), every axis label with its unit in
     brackets, time on the shared x axis, every disturbance marked on every panel."""
     folder, suite, _ = passing_suite
     test = suite["tests"][0]
@@ -230,8 +230,8 @@ def test_plots_have_six_panels_with_units(passing_suite, captured_figures, tmp_p
     marks = [tuple(m) for m in summary["marks"]]
     out = plot_run(trace, tmp_path / "plots.png", title="t", marks=marks)
     (figure,) = captured_figures
-    axes = figure.axes[:len(PANELS)]
-    assert len([a for a in figure.axes if a.get_ylabel()]) == 6
+    axes = [a for a in figure.axes if a.get_ylabel()]
+    assert len(axes) == len(PANELS) == 7
     for ax, panel in zip(axes, PANELS):
         label = ax.get_ylabel()
         assert label.startswith(panel), (label, panel)
@@ -248,7 +248,7 @@ def test_plots_have_six_panels_with_units(passing_suite, captured_figures, tmp_p
                                np.degrees(trace["pitch_rad"]), err_msg="tilt panel (deg)")
     for path in (out, sub / "plots.png"):
         with Image.open(path) as image:
-            assert image.format == "PNG" and image.size == (810, 1080), path
+            assert image.format == "PNG" and image.size == (810, 1215), path
 
 
 # ------------------------------------------------------------------ in a real browser

@@ -34,7 +34,7 @@ from sandbox.sweep import (
     tune,
     wilson_interval,
 )
-from sandbox.sweep.jobs import check_column, expected_distance
+from sandbox.sweep.jobs import check_column, check_slug, expected_distance
 from sandbox.sweep.store import POINTS
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -77,8 +77,12 @@ def short_push(tmp_path_factory, shelf_runner) -> Path:
     return path
 
 
-def _read_csv(path: Path) -> list[dict[str, str]]:
-    return list(csv.DictReader(io.StringIO(path.read_text(encoding="utf-8"))))
+def _read_csv(path: Path, unit_row: bool = True) -> list[dict[str, str]]:
+    rows = list(csv.DictReader(io.StringIO(path.read_text(encoding="utf-8"))))
+    if not unit_row:
+        return rows
+    assert rows[0]["index"] == "unit:", "the second header row gives the units"
+    return rows[1:]
 
 
 # --------------------------------------------------------------------- statistics
@@ -146,7 +150,7 @@ def test_parse_vary_forms_and_errors():
     assert axis.values == (0.3, 0.5, 0.7, 0.9)
     assert parse_vary("config.kp=5,7.5,10").values == (5.0, 7.5, 10.0)
     assert parse_vary("config.kp=3:3:1").values == (3.0,)
-    for bad, words in (("wheels.friction", "KEY=START"), ("config.kp=1:2:0", "N must"),
+    for bad, words in (("wheels.friction", "KEY=START"), ("config.kp=1:2:0", "n .* must"),
                        ("config.kp=a:2:3", "not a number"), ("=1:2:3", "dotted key"),
                        ("wheels..friction=1:2:2", "dotted key"), ("config.kp=1:2", "START")):
         with pytest.raises(SweepError, match=words):
@@ -249,11 +253,15 @@ def test_two_point_grid_matches_separate_runs(tmp_path, shelf_runner, short_push
                      "saturation_fraction", "mean_abs_duty", "duration_s"):
             assert float(row[name]) == alone.summary[name], f"{name} at friction {friction}"
         assert row["status"] == alone.status
-        assert row["passed"] == str(alone.summary["test_result"]["passed"])
+        assert row["passed"] == str(int(alone.summary["test_result"]["passed"]))
         assert int(row["seed"]) == 3, "grid points run with the base seed"
         for check in alone.summary["test_result"]["checks"]:
             column = check_column(check)
-            assert float(row[column]) == check["value"], f"{column} at friction {friction}"
+            name = column.removeprefix("check.")
+            assert row[f"passed.{check_slug(check)}"] == str(int(check["passed"]))
+            if check["label"] != "stays up":
+                assert float(row[f"measured.{name}"]) == check["value"], \
+                    f"{column} at friction {friction}"
 
 
 def test_resume_skips_finished_points(tmp_path, shelf_runner):
@@ -379,7 +387,7 @@ def test_tune_improves_poor_gains_short(tmp_path, shelf_runner, short_push):
                      test=str(short_push), write=False)
     assert again.summary["test_result"]["passed"], "best_config.yaml passes in a plain run"
     assert again.summary["max_abs_pitch_deg"] == result.after.runs[0]["max_abs_pitch_deg"]
-    history = _read_csv(tmp_path / "tune" / "history.csv")
+    history = _read_csv(tmp_path / "tune" / "history.csv", unit_row=False)
     assert len(history) == result.evaluations
     assert not math.isnan(json.loads((tmp_path / "tune" / "tune.json").read_text())
                           ["cost_after"])

@@ -6,7 +6,9 @@ scene built by :class:`sandbox.world.World` (robot and floor as in the run),
 renders it with the tiny software renderer from beside the robot, paints the
 flat floor with a checker (see :class:`FloorPainter`: the engine spends most of
 a frame on the floor's few big triangles), draws an overlay strip with numpy
-(time, tilt gauge, both duties, disturbance marks) and hands the frame to
+(time, tilt gauge, both duties, each labelled with its scale, disturbance marks),
+draws the frame translucent, the forward direction and each push as an arrow at
+its point of application (``annotate.py``), and hands the frame to
 ffmpeg (libx264, yuv420p) through imageio-ffmpeg.
 
 Frame rule: frames fall at ``t_first + k / fps`` for ``k = 0 .. floor((t_last -
@@ -26,8 +28,10 @@ imported), spawned elsewhere.
 """
 
 from .frames import (
+    CAMERAS,
     VIDEO_NAME,
     FrameTable,
+    PushMark,
     RenderError,
     RenderJob,
     _marks_on_show,
@@ -35,12 +39,14 @@ from .frames import (
     frame_table,
     frame_times,
     load_job,
+    push_marks,
 )
 from .overlay import OverlayLayout, draw_bar, draw_overlay, draw_text, glyph
 from .scene import FIELD_OF_VIEW_DEG, Camera, FloorPainter, FloorPiece, FrameRenderer
 from .video import _context, chunks, render_run, render_segment
 
 __all__ = [
+    "CAMERAS", "PushMark", "push_marks",
     "FIELD_OF_VIEW_DEG", "VIDEO_NAME", "Camera", "FloorPainter", "FloorPiece", "FrameRenderer",
     "FrameTable", "OverlayLayout", "RenderError", "RenderJob", "_context", "_marks_on_show",
     "check_size", "chunks", "draw_bar", "draw_overlay", "draw_text", "frame_table",

@@ -66,9 +66,82 @@ class FrameTable:
     mark: np.ndarray  # (n,) index into labels of the mark on show, -1 for none
     mark_age: np.ndarray  # (n,) s since that mark fired
     labels: tuple[str, ...]
+    push: np.ndarray | None = None  # (n,) index into pushes of the push drawn, -1 for none
+    pushes: tuple[PushMark, ...] = ()
 
     def __len__(self) -> int:
         return len(self.t)
+
+
+PUSH_SHOW_S = 0.6  # the push arrow stays this long (or the push's own duration, if longer)
+PUSH_DIRECTIONS = ("forward", "backward", "left", "right")
+
+
+@dataclass(frozen=True)
+class PushMark:
+    """A push as the video draws it: when (s), which way (relative to the robot's heading
+    when it fired), where (m above the axle, on the body's z axis), for how long (s)."""
+
+    t: float
+    direction: str
+    height: float
+    show_s: float
+    label: str
+
+
+def push_label(push: dict) -> str:
+    """The label a push's mark carries in summary.json (the words the timeline writes)."""
+    if push.get("impulse") is not None:
+        return f"push {float(push['impulse']):.3g} N*s"
+    return f"push {float(push['force']):.3g} N for {float(push.get('duration', 0.1)):g} s"
+
+
+def push_marks(marks, test_definition: dict | None, default_height: float) -> tuple[
+        PushMark, ...]:
+    """Pair summary.json's push marks (times) with run.yaml's push events (direction, height).
+
+    Each mark takes the first unused push event whose label it carries, so pushes
+    fired by distance, or out of the file's order, still find their own event.
+    Marks without a matching event (a hand-edited summary) are drawn forward at
+    the default height.
+    """
+    events = [e["push"] for e in (test_definition or {}).get("events", ())
+              if isinstance(e, dict) and isinstance(e.get("push"), dict)]
+    used: set[int] = set()
+    out = []
+    for entry in marks or ():
+        try:
+            when, label = float(entry[0]), str(entry[1])
+        except (TypeError, ValueError, IndexError):
+            continue
+        if not (label.startswith("push") and math.isfinite(when)):
+            continue
+        push: dict = {}
+        for k, event in enumerate(events):
+            try:
+                same = k not in used and push_label(event) == label
+            except (TypeError, ValueError, KeyError):
+                same = False
+            if same:
+                used.add(k)
+                push = event
+                break
+        direction = push.get("direction", "forward")
+        height = push.get("height")
+        duration = push.get("duration", 0.0) if push.get("force") is not None else 0.0
+        out.append(PushMark(
+            when, direction if direction in PUSH_DIRECTIONS else "forward",
+            float(height) if height is not None else default_height,
+            max(PUSH_SHOW_S, float(duration)), label))
+    return tuple(sorted(out, key=lambda m: m.t))
+
+
+def _pushes_on_show(t: np.ndarray, pushes: tuple[PushMark, ...]) -> np.ndarray:
+    """Index of the latest push on show at each frame (within its show time), else -1."""
+    shown = np.full(t.shape, -1, dtype=int)
+    for k, push in enumerate(pushes):
+        shown[(t >= push.t - 1e-9) & (t < push.t + push.show_s)] = k
+    return shown
 
 
 POSE = ("pose_x_m", "pose_y_m", "pose_z_m", "pose_qx", "pose_qy", "pose_qz", "pose_qw")
@@ -76,7 +149,7 @@ WHEELS = ("wheel_l_rad", "wheel_r_rad")
 
 
 def frame_table(trace: dict[str, np.ndarray], fps: float,
-                marks: list | tuple = ()) -> FrameTable:
+                marks: list | tuple = (), pushes: tuple[PushMark, ...] = ()) -> FrameTable:
     """Sample a trace (as ``read_trace`` gives it) at the frame instants."""
     needed = ("t_s", "pitch_rad", "duty_l", "duty_r") + POSE + WHEELS
     missing = [c for c in needed if c not in trace]
@@ -104,7 +177,8 @@ def frame_table(trace: dict[str, np.ndarray], fps: float,
         wheels=np.column_stack([np.interp(t, t_s, trace[c]) for c in WHEELS]),
         pitch=np.interp(t, t_s, trace["pitch_rad"]),
         duty=np.column_stack([trace["duty_l"][held], trace["duty_r"][held]]),
-        mark=mark, mark_age=age, labels=labels)
+        mark=mark, mark_age=age, labels=labels, push=_pushes_on_show(t, tuple(pushes)),
+        pushes=tuple(pushes))
 
 
 def _marks_on_show(t: np.ndarray, marks) -> tuple[tuple[str, ...], np.ndarray, np.ndarray]:
@@ -136,24 +210,41 @@ class RenderJob:
     ground: dict | None  # run.yaml's ``ground`` record, None for the default flat floor
     size: tuple[int, int]
     table: FrameTable
+    camera: str = "side"  # one of CAMERAS
 
 
-def load_job(folder: Path, fps: float, size: tuple[int, int]) -> RenderJob:
+CAMERAS = ("side", "front", "three-quarter", "follow")
+
+
+def check_camera(camera: str) -> str:
+    """A camera name from CAMERAS; else ValueError naming the choices."""
+    if camera not in CAMERAS:
+        raise ValueError(f"camera {camera!r}: choose one of {', '.join(CAMERAS)}")
+    return camera
+
+
+def load_job(folder: Path, fps: float, size: tuple[int, int],
+             camera: str = "side") -> RenderJob:
     """Read a run folder's robot.yaml, run.yaml, trace.csv and summary.json."""
+    check_camera(camera)
     folder = Path(folder)
     for name in ("trace.csv", "robot.yaml"):
         if not (folder / name).is_file():
             raise RenderError(f"{folder}: no {name}; is this a run folder?")
     robot = yaml.safe_load((folder / "robot.yaml").read_text(encoding="utf-8"))
-    robot_from_dict(robot, str(folder / "robot.yaml"))  # a bad file fails here, not in workers
+    spec = robot_from_dict(robot, str(folder / "robot.yaml"))  # fails here, not in workers
     run = {}
     if (folder / "run.yaml").is_file():
         run = yaml.safe_load((folder / "run.yaml").read_text(encoding="utf-8")) or {}
     marks = []
     if (folder / "summary.json").is_file():
         marks = json.loads((folder / "summary.json").read_text(encoding="utf-8")).get("marks")
-    table = frame_table(read_trace(folder / "trace.csv"), fps, marks or ())
-    return RenderJob(robot=robot, ground=run.get("ground"), size=size, table=table)
+    from ..events import _push_height
+
+    pushes = push_marks(marks, run.get("test_definition"), _push_height(spec))
+    table = frame_table(read_trace(folder / "trace.csv"), fps, marks or (), pushes)
+    return RenderJob(robot=robot, ground=run.get("ground"), size=size, table=table,
+                     camera=camera)
 
 
 # --------------------------------------------------------------------- scene

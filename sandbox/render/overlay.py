@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from functools import cache
 
@@ -25,7 +26,7 @@ MARK_TEXT = (20, 20, 20)
 
 
 # 5×7 glyphs: a character, then its rows top to bottom separated by '/', '#' lit;
-# two glyphs a line. Lower case is drawn as upper case; unknown characters as '?'.
+# two glyphs a line. Unknown characters are drawn as '?'.
 _FONT_TABLE = """
 0 .###./#...#/#..##/#.#.#/##..#/#...#/.###.    1 ..#../.##../..#../..#../..#../..#../.###.
 2 .###./#...#/....#/...#./..#../.#.../#####    3 #####/...#./..#../...#./....#/#...#/.###.
@@ -52,7 +53,22 @@ Y #...#/#...#/.#.#./..#../..#../..#../..#..    Z #####/....#/...#./..#../.#.../#
 ) .#.../..#../...#./...#./...#./..#../.#...    , ...../...../...../...../.##../..#../.#...
 = ...../...../#####/...../#####/...../.....    ? .###./#...#/....#/...#./..#../...../..#..
 _ ...../...../...../...../...../...../#####    ' ..#../..#../.#.../...../...../...../.....
-* ...../#.#.#/.###./#####/.###./#.#.#/.....
+* ...../#.#.#/.###./#####/.###./#.#.#/.....    · ...../...../...../..#../...../...../.....
+± ..#../..#../#####/..#../..#../...../#####    > .#.../..#../...#./....#/...#./..#../.#...
+< ...#./..#../.#.../#..../.#.../..#../...#.    | ..#../..#../..#../..#../..#../..#../..#..
+a ...../...../.###./....#/.####/#...#/.####    b #..../#..../#.##./##..#/#...#/#...#/####.
+c ...../...../.###./#..../#..../#...#/.###.    d ....#/....#/.##.#/#..##/#...#/#...#/.####
+e ...../...../.###./#...#/#####/#..../.###.    f ..##./.#..#/.#.../###../.#.../.#.../.#...
+g ...../.####/#...#/#...#/.####/....#/.###.    h #..../#..../#.##./##..#/#...#/#...#/#...#
+i ..#../...../.##../..#../..#../..#../.###.    j ...#./...../..##./...#./...#./#..#./.##..
+k #..../#..../#..#./#.#../##.../#.#../#..#.    l .##../..#../..#../..#../..#../..#../.###.
+m ...../...../##.#./#.#.#/#.#.#/#...#/#...#    n ...../...../#.##./##..#/#...#/#...#/#...#
+o ...../...../.###./#...#/#...#/#...#/.###.    p ...../...../####./#...#/####./#..../#....
+q ...../...../.##.#/#..##/.####/....#/....#    r ...../...../#.##./##..#/#..../#..../#....
+s ...../...../.###./#..../.###./....#/####.    t .#.../.#.../###../.#.../.#.../.#..#/..##.
+u ...../...../#...#/#...#/#...#/#..##/.##.#    v ...../...../#...#/#...#/#...#/.#.#./..#..
+w ...../...../#...#/#...#/#.#.#/#.#.#/.#.#.    x ...../...../#...#/.#.#./..#../.#.#./#...#
+y ...../...../#...#/#...#/.####/....#/.###.    z ...../...../#####/...#./..#../.#.../#####
 """
 _FONT_ROWS = {word[0]: rows for line in _FONT_TABLE.strip().splitlines()
               for word, rows in zip(line.split()[::2], line.split()[1::2])}
@@ -65,7 +81,7 @@ def glyph(char: str, scale: int) -> np.ndarray:
     if char == " ":
         mask = np.zeros((GLYPH_H, GLYPH_W), dtype=bool)
     else:
-        rows = _FONT_ROWS.get(char.upper(), _FONT_ROWS["?"]).split("/")
+        rows = _FONT_ROWS.get(char, _FONT_ROWS["?"]).split("/")
         mask = np.array([[c == "#" for c in row] for row in rows], dtype=bool)
     mask = np.pad(mask, ((0, 0), (0, 1)))
     return np.repeat(np.repeat(mask, scale, axis=0), scale, axis=1)
@@ -83,22 +99,30 @@ def draw_text(frame: np.ndarray, text: str, x: int, y: int, scale: int, colour) 
 
 @dataclass(frozen=True)
 class OverlayLayout:
-    """Where the strip's items sit for one frame size (px)."""
+    """Where the strip's items sit for one frame size (px).
 
-    scale: int  # glyph pixel size
+    The strip has two rows: the values (time, tilt, both duties as centre-zero
+    bars) and under them, in a smaller font, what each one is and its full scale.
+    """
+
+    scale: int  # glyph pixel size of the values
     strip: int  # strip height
     time_x: int
     tilt_text_x: int
     tilt_bar: tuple[int, int]
     duty_labels: tuple[int, int]
     duty_bars: tuple[tuple[int, int], tuple[int, int]]
+    label_scale: int = 1  # glyph pixel size of the labels row
+    label_top: int = 0
+    labels: tuple[tuple[str, int], ...] = ()  # (text, x) of each label
 
     @classmethod
     def for_size(cls, width: int, height: int) -> OverlayLayout:
         s = max(1, round(height / 150))
+        small = max(1, round(2 * s / 3))
         char = (GLYPH_W + 1) * s
         x = 2 * s
-        time_x, x = x, x + 8 * char + 3 * s  # "123.45 S"
+        time_x, x = x, x + 8 * char + 3 * s  # "123.45 s"
         tilt_text_x, x = x, x + 6 * char + s  # "+12.3°"
         free = max(3, width - x - 2 * char - 6 * s)
         tilt_w, duty_w = int(free * 0.4), int(free * 0.3)
@@ -107,8 +131,23 @@ class OverlayLayout:
         left_bar, x = (x, x + duty_w), x + duty_w + 2 * s
         right_label, x = x, x + char
         right_bar = (x, min(width - s, x + duty_w))
-        return cls(s, (GLYPH_H + 4) * s, time_x, tilt_text_x, tilt_bar,
-                   (left_label, right_label), (left_bar, right_bar))
+        label_top = 2 * s + GLYPH_H * s + 2 * s
+        spans = ((time_x, tilt_text_x - s, ("time", "t")),
+                 (tilt_text_x, tilt_bar[1], (f"tilt, bar ±{TILT_GAUGE_DEG:g}°",
+                                             f"tilt ±{TILT_GAUGE_DEG:g}°", "tilt")),
+                 (left_label, left_bar[1], ("left duty ±1", "left ±1", "left", "L")),
+                 (right_label, right_bar[1], ("right duty ±1", "right ±1", "right", "R")))
+        labels = []
+        for x0, x1, words in spans:
+            fitting = [w for w in words if len(w) * (GLYPH_W + 1) * small <= x1 - x0]
+            if fitting:
+                labels.append((fitting[0], x0))
+        strip = label_top + GLYPH_H * small + 2 * s
+        return cls(s, strip, time_x, tilt_text_x, tilt_bar, (left_label, right_label),
+                   (left_bar, right_bar), small, label_top, tuple(labels))
+
+
+LABEL_COLOUR = (170, 172, 182)
 
 
 def draw_bar(frame: np.ndarray, span: tuple[int, int], top: int, height: int,
@@ -129,6 +168,11 @@ def draw_bar(frame: np.ndarray, span: tuple[int, int], top: int, height: int,
         frame[top + 2 * height // 3:top + height, x:x + 1] = CENTRE_LINE
 
 
+def unit_text(label: str) -> str:
+    """A label with units as they are printed: ``N*s`` becomes ``N·s``."""
+    return re.sub(r"(?<=[A-Za-z])\*(?=[A-Za-z])", "·", label)
+
+
 def tilt_colour(degrees: float):
     """Green under 5°, amber under 15°, red beyond."""
     size = abs(degrees)
@@ -140,7 +184,9 @@ def draw_overlay(frame: np.ndarray, layout: OverlayLayout, table: FrameTable, i:
     s, strip = layout.scale, layout.strip
     frame[:strip] = STRIP_COLOUR
     top, tall = 2 * s, GLYPH_H * s
-    draw_text(frame, f"{table.t[i]:6.2f} S", layout.time_x, top, s, TEXT_COLOUR)
+    draw_text(frame, f"{table.t[i]:6.2f} s", layout.time_x, top, s, TEXT_COLOUR)
+    for text, x in layout.labels:
+        draw_text(frame, text, x, layout.label_top, layout.label_scale, LABEL_COLOUR)
     degrees = math.degrees(table.pitch[i])
     draw_text(frame, f"{degrees:+5.1f}°", layout.tilt_text_x, top, s, tilt_colour(degrees))
     draw_bar(frame, layout.tilt_bar, top, tall, degrees / TILT_GAUGE_DEG, tilt_colour(degrees),
@@ -153,7 +199,7 @@ def draw_overlay(frame: np.ndarray, layout: OverlayLayout, table: FrameTable, i:
     mark = int(table.mark[i])
     if mark >= 0:
         frame[strip:2 * strip] = MARK_COLOUR
-        label = f"{table.labels[mark]}"
+        label = unit_text(table.labels[mark])
         draw_text(frame, label, 2 * s, strip + top, s, MARK_TEXT)
         if table.mark_age[i] < MARK_FLASH_S:  # a border flash when it fires
             edge = 2 * s

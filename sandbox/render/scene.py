@@ -20,6 +20,11 @@ CHECKER_CONTRAST = 0.12  # dark squares are this much darker
 FLOOR_FADE_SQUARES = 30  # the checker fades out over this many squares' distance
 BACKGROUND_DEPTH = 0.99999  # tiny renderer depth of empty pixels (it clears to just under 1)
 GRAZING = 1e-3  # rays that drop less than this per unit length count as missing the floor
+# --camera: (azimuth from world +x towards +y, elevation) in degrees; the robot starts
+# heading +x, so side looks at its right flank with forward to the picture's right
+CAMERA_VIEWS = {"side": (-90.0, CAMERA_ELEVATION_DEG), "front": (0.0, CAMERA_ELEVATION_DEG),
+                "three-quarter": (-45.0, 25.0), "follow": (180.0, 15.0)}
+FOLLOW_STEP_DEG = 2.0  # the follow camera turns after the robot in steps of this much
 
 
 @dataclass(frozen=True)
@@ -43,12 +48,28 @@ class Camera:
     @classmethod
     def beside(cls, distance: float) -> Camera:
         """On the robot's -y side, looking along +y and down by CAMERA_ELEVATION_DEG."""
-        elevation = math.radians(CAMERA_ELEVATION_DEG)
-        offset = np.array([0.0, -math.cos(elevation), math.sin(elevation)]) * distance
+        return cls.looking(-90.0, CAMERA_ELEVATION_DEG, distance)
+
+    @classmethod
+    def looking(cls, azimuth_deg: float, elevation_deg: float, distance: float) -> Camera:
+        """At ``distance`` (m) from the aim point, in the direction ``azimuth_deg`` from
+        world +x towards +y and ``elevation_deg`` above level, looking back at it."""
+        azimuth, elevation = math.radians(azimuth_deg), math.radians(elevation_deg)
+        offset = np.array([math.cos(elevation) * math.cos(azimuth),
+                           math.cos(elevation) * math.sin(azimuth),
+                           math.sin(elevation)]) * distance
         forward = -offset / distance
         right = np.cross(forward, (0.0, 0.0, 1.0))
         right /= np.linalg.norm(right)
         return cls(forward, right, np.cross(right, forward), offset)
+
+    @classmethod
+    def named(cls, name: str, distance: float, heading_deg: float = 0.0) -> Camera:
+        """A camera of CAMERA_VIEWS by name; ``follow`` sits behind ``heading_deg``."""
+        azimuth, elevation = CAMERA_VIEWS[name]
+        if name == "follow":
+            azimuth += heading_deg
+        return cls.looking(azimuth, elevation, distance)
 
     def rays(self, width: int, height: int) -> np.ndarray:
         """(height, width, 3) direction through each pixel's centre (forward component 1)."""
@@ -245,7 +266,10 @@ class FrameRenderer:
         self.layout = OverlayLayout.for_size(width, height)
         top = max(max(b.at[2] + b.size[2] / 2 for b in spec.figures.boxes), spec.wheels.radius)
         distance = CAMERA_DISTANCE_PER_HEIGHT * top
-        self.camera = Camera.beside(distance)
+        self.camera_name = getattr(job, "camera", "side")
+        self.camera = Camera.named(self.camera_name, distance)
+        self.camera_heading = 0.0
+        self.distance, self.top, self.spec = distance, top, spec
         self.aim = np.array([0.0, 0.0, 0.25 * top])
         self.projection = pb.computeProjectionMatrixFOV(
             FIELD_OF_VIEW_DEG, width / height, distance / 40.0, distance * 40.0,
@@ -255,8 +279,15 @@ class FrameRenderer:
         rotation = np.array(pb.getMatrixFromQuaternion(tilt)).reshape(3, 3)
         shade = _floor_shade(tilt, self.camera, distance)
         pieces = self._take_floor_pieces(rotation, shade)
-        self.floor = FloorPainter(job.size, self.camera, rotation, pieces,
-                                  _checker_square(CHECKER_PER_HEIGHT * top))
+        self._floor_args = (rotation, pieces, _checker_square(CHECKER_PER_HEIGHT * top))
+        self.floor = FloorPainter(job.size, self.camera, *self._floor_args)
+        self.frame_box = spec.figures.boxes[0]  # drawn translucent by annotate.draw_box
+        self.frame_colour = tuple(int(self.frame_box.colour[k:k + 2], 16) for k in (1, 3, 5))
+        # fully transparent shapes are skipped by the tiny renderer: the parts show through
+        pb.changeVisualShape(self.world.robot_id, -1, shapeIndex=0,
+                             rgbaColor=[*(c / 255 for c in self.frame_colour), 0.0],
+                             physicsClientId=self.client)
+        self.state = None
 
     def _take_floor_pieces(self, rotation: np.ndarray, shade: float) -> list[FloorPiece]:
         """The world's floor as FloorPieces for the painter, hidden from the engine's renderer.
@@ -301,9 +332,65 @@ class FrameRenderer:
         pb.resetJointState(robot, left, table.wheels[i, 0], physicsClientId=c)
         pb.resetJointState(robot, right, table.wheels[i, 1], physicsClientId=c)
         # aim a little above the axle so a tall body stays clear of the overlay strip
-        target = np.asarray(world.body_state().axle) + self.aim
+        self.state = world.body_state()
+        if self.camera_name == "follow":
+            self._follow(world.forward_axis(self.state))
+        target = np.asarray(self.state.axle) + self.aim
         eye = target + self.camera.offset
         return eye, pb.computeViewMatrix(eye, target, (0, 0, 1), physicsClientId=c)
+
+    def _follow(self, heading) -> None:
+        """Turn the follow camera (and the floor painter's rays) after the robot's heading."""
+        degrees = math.degrees(math.atan2(heading[1], heading[0]))
+        turn = (degrees - self.camera_heading + 180.0) % 360.0 - 180.0
+        if abs(turn) < FOLLOW_STEP_DEG:
+            return
+        self.camera_heading = degrees
+        self.camera = Camera.named("follow", self.distance, degrees)
+        self.floor = FloorPainter(self.job.size, self.camera, *self._floor_args)
+
+    def annotate(self, rgb: np.ndarray, i: int, eye) -> None:
+        """The translucent frame, the forward arrow and any push arrow, drawn in place."""
+        from .annotate import (
+            FORWARD_COLOUR,
+            FORWARD_LENGTH_PER_HEIGHT,
+            PUSH_COLOUR,
+            PUSH_LENGTH_PER_HEIGHT,
+            draw_box,
+            draw_label,
+            draw_world_arrow,
+        )
+
+        state, world, s = self.state, self.world, self.layout.scale
+        rotation = np.asarray(state.rotation, float).reshape(3, 3)
+        axle = np.asarray(state.axle, float)
+        box = self.frame_box
+        draw_box(rgb, axle + rotation @ np.asarray(box.at), rotation, box.size, eye,
+                 self.camera, self.frame_colour, max(1.0, s * 0.7))
+        normal = np.asarray(world.floor_normal(), float)
+        heading = np.asarray(world.forward_axis(state), float)
+        radius = self.spec.wheels.radius
+        tail = axle - normal * radius + heading * 1.3 * radius
+        head = tail + heading * FORWARD_LENGTH_PER_HEIGHT * self.top
+        tip = draw_world_arrow(rgb, tail, head, eye, self.camera, 1.5 * s, FORWARD_COLOUR)
+        if tip is not None:
+            draw_label(rgb, "forward", tip + np.array([0.0, 6.0 * s]), max(1, s - 1),
+                       FORWARD_COLOUR)
+        table = self.job.table
+        k = -1 if table.push is None else int(table.push[i])
+        if k < 0:
+            return
+        push = table.pushes[k]
+        side = np.array([-heading[1], heading[0], 0.0])
+        way = {"forward": heading, "backward": -heading, "left": side,
+               "right": -side}[push.direction]
+        point = axle + rotation @ np.array([0.0, 0.0, push.height])
+        start = point - way * PUSH_LENGTH_PER_HEIGHT * self.top
+        tip = draw_world_arrow(rgb, start, point, eye, self.camera, 2.0 * s, PUSH_COLOUR,
+                               dot=2.5 * s)
+        if tip is not None:  # the way it went, in words: seen end-on an arrow is a dot
+            draw_label(rgb, f"push {push.direction}", tip - np.array([0.0, 6.0 * s]),
+                       max(1, s - 1), PUSH_COLOUR)
 
     def render(self, i: int, out: np.ndarray | None = None) -> np.ndarray:
         """Frame ``i`` with its floor and overlay: (height, width, 4) uint8 RGBA.
@@ -322,6 +409,7 @@ class FrameRenderer:
             np.copyto(out, rgba)
             rgba = out
         self.floor.paint(rgba, np.reshape(depth, (height, width)), eye)
+        self.annotate(rgba[:, :, :3], i, eye)
         draw_overlay(rgba[:, :, :3], self.layout, self.job.table, i)
         return rgba
 

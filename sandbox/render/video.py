@@ -170,8 +170,12 @@ def _mux(segments: list[Path], joined: Path, out: Path, fps: float) -> None:
 
 def render_run(folder: Path, fps: float = 30, size: tuple[int, int] = (640, 480),
                workers: int | None = None,
-               progress: Callable[[int, int], None] | None = None) -> Path:
+               progress: Callable[[int, int], None] | None = None,
+               camera: str = "side") -> Path:
     """Render ``folder/video.mp4`` from a recorded run; returns its path.
+
+    ``camera`` is one of ``side``, ``front``, ``three-quarter``, ``follow``
+    (behind the robot, turning with it).
 
     ``size`` is (width, height) px, each divisible by 16. ``workers`` processes
     render (default: one per core; 1 renders in this process), each a chunk of
@@ -189,7 +193,7 @@ def render_run(folder: Path, fps: float = 30, size: tuple[int, int] = (640, 480)
         workers = os.cpu_count() or 1
     if isinstance(workers, bool) or int(workers) != workers or workers < 1:
         raise ValueError(f"workers must be a whole number >= 1, got {workers!r}")
-    job = load_job(folder, fps, size)
+    job = load_job(folder, fps, size, camera)
     total = len(job.table)
     parts = chunks(total, int(workers))
     done = 0

@@ -176,7 +176,8 @@ def run_sweep(spec: RobotSpec, settings: RunSettings, folder: Path, *,
     if figure not in FIGURES:
         raise SweepError(f"--figure {figure!r}: choose one of {', '.join(FIGURES)}")
     if not axes and not samples:
-        raise SweepError("nothing to sweep: give --vary KEY=START:STOP:N and/or --samples N")
+        raise SweepError("nothing to sweep: give --vary KEY=A,B,C or KEY=START..STOP,n=N and/or "
+                         "--samples N")
     common = make_common(spec, replace(settings, test_name=test or "none"), [test],
                          duration_given)
     points = make_points(axes, spreads, samples, settings.seed,

@@ -168,20 +168,38 @@ def _plain(value: Any) -> Any:
 
 
 def check_entry(check: dict[str, Any]) -> dict[str, Any]:
-    """A test check as a results column: ``check.<label>_<unit>``, value, passed."""
+    """A test check as stored for results: ``check.<label>_<unit>``, value, passed, and
+    the label's slug and the limit's unit (for results.csv's columns and unit row)."""
     return {"column": check_column(check), "value": _plain(check.get("value")),
-            "passed": bool(check["passed"])}
+            "passed": bool(check["passed"]), "name": check_slug(check),
+            "unit": check_unit(check)}
 
 
-def check_column(check: dict[str, Any]) -> str:
-    slug = re.sub(r"[^a-z0-9]+", "_", str(check["label"]).lower()).strip("_")
+def check_slug(check: dict[str, Any]) -> str:
+    """``"position held"`` -> ``"position_held"``."""
+    return re.sub(r"[^a-z0-9]+", "_", str(check["label"]).lower()).strip("_")
+
+
+def check_unit(check: dict[str, Any]) -> str:
+    """The unit of a check's limit (``"1.02 m"`` -> ``"m"``); empty for a bare number."""
     number, _, unit = str(check.get("limit", "")).partition(" ")
     try:
         float(number)
     except ValueError:
-        unit = ""
-    unit = re.sub(r"[^A-Za-z0-9]+", "_", unit).strip("_")
-    return f"check.{slug}" + (f"_{unit}" if unit else "")
+        return ""
+    return unit.strip()
+
+
+def check_column(check: dict[str, Any]) -> str:
+    unit = re.sub(r"[^A-Za-z0-9]+", "_", check_unit(check)).strip("_")
+    return f"check.{check_slug(check)}" + (f"_{unit}" if unit else "")
+
+
+def check_name(entry: dict[str, Any]) -> str:
+    """A stored check entry's name in words (``position held``), also for rows stored
+    before entries carried their name."""
+    name = entry.get("name") or str(entry.get("column", "check")).removeprefix("check.")
+    return name.replace("_", " ")
 
 
 def cost_terms(trace: dict[str, np.ndarray], plan: Any) -> dict[str, float | None]:

@@ -112,34 +112,98 @@ def _number(text: str, option: str, whole: str, key: str = "") -> float:
 
 
 def _clean(value: float) -> float:
-    """12 significant figures: 0.3:0.9:4 gives 0.5, not 0.49999999999999994."""
+    """12 significant figures: 0.3..0.9 n=4 gives 0.5, not 0.49999999999999994."""
     return float(f"{value:.12g}")
 
 
+VARY_FORMS = "KEY=A,B,C (a list) or KEY=START..STOP,n=N (N values, both ends included)"
+VARY_EXAMPLE = "wheels.friction=0.3..0.9,n=4"
+# START..STOP then the count, separated by a comma or spaces: "0.3..0.9,n=4", "0.3..0.9 n=4"
+_RANGE = re.compile(r"^(?P<start>.+?)\.\.(?P<stop>.+?)(?:\s*,\s*|\s+)n\s*=\s*(?P<count>\S+)$")
+
+
+@dataclass(frozen=True)
+class VaryForm:
+    """How an axis was written: ``list``, ``range``, or ``colon`` (the deprecated
+    START:STOP:N); ``note`` is what to tell the user about it (empty: nothing)."""
+
+    form: str
+    note: str = ""
+
+
+def vary_form(text: str) -> VaryForm:
+    """Which form a --vary text uses, with a deprecation note for START:STOP:N."""
+    _key, _sep, spec = text.partition("=")
+    if spec.count(":") == 2 and ".." not in spec:
+        start, stop, count = (p.strip() for p in spec.split(":"))
+        return VaryForm("colon", f"--vary {text!r}: START:STOP:N is deprecated and will be "
+                        f"removed in the next release; write {_key.strip()}={start}..{stop},"
+                        f"n={count} (the same {count} values)")
+    return VaryForm("range" if ".." in spec else "list")
+
+
+def _count(text: str, whole: str) -> int:
+    try:
+        count = int(text.strip())
+    except ValueError:
+        count = 0
+    if not 1 <= count <= MAX_AXIS_POINTS:
+        raise SweepError(f"--vary {whole!r}: n (how many values) must be a whole number from "
+                         f"1 to {MAX_AXIS_POINTS}, got {text.strip()!r}")
+    return count
+
+
+def _values(texts: Sequence[str], whole: str, key: str = "") -> list[float]:
+    """Each text as an SI number, or a unit string read for ``key`` as --set reads it."""
+    return [_number(text, "--vary", whole, key) for text in texts]
+
+
 def parse_vary(text: str) -> Axis:
-    """``KEY=START:STOP:N`` (N evenly spaced values, both ends included) or ``KEY=A,B,C``."""
+    """One grid axis from ``--vary``.
+
+    - ``KEY=A,B,C``: exactly these values;
+    - ``KEY=START..STOP,n=N`` (or with a space before ``n=``): N evenly spaced
+      values from START to STOP, both included;
+    - ``KEY=START:STOP:N``: the same N values, deprecated (see :func:`vary_form`).
+    """
     key, sep, spec = text.partition("=")
     if not sep:
-        raise SweepError(f"--vary {text!r}: expected KEY=START:STOP:N, "
-                         "e.g. wheels.friction=0.3:0.9:4")
+        raise SweepError(f"--vary {text!r}: expected {VARY_FORMS}, e.g. {VARY_EXAMPLE}")
     key = check_key(key, "--vary")
-    parts = spec.split(":")
-    if len(parts) == 3:
-        start = _number(parts[0], "--vary", text, key)
-        stop = _number(parts[1], "--vary", text, key)
-        try:
-            count = int(parts[2].strip())
-        except ValueError:
-            count = 0
-        if not 1 <= count <= MAX_AXIS_POINTS:
-            raise SweepError(f"--vary {text!r}: N must be a whole number from 1 to "
-                             f"{MAX_AXIS_POINTS}, got {parts[2].strip()!r}")
+    spec = spec.strip()
+    form = vary_form(text).form
+    if form == "colon":
+        start_text, stop_text, count_text = spec.split(":")
+        start, stop = _values((start_text, stop_text), text, key)
+        count = _count(count_text, text)
         values = tuple(_clean(v) for v in np.linspace(start, stop, count))
-    elif len(parts) == 1 and spec.strip():
-        values = tuple(_number(p, "--vary", text, key) for p in spec.split(","))
+    elif form == "range":
+        match = _RANGE.match(spec)
+        if match is None:
+            raise SweepError(f"--vary {text!r}: a range needs its count written out: "
+                             f"START..STOP,n=N, e.g. {VARY_EXAMPLE}")
+        start, stop = _values((match["start"], match["stop"]), text, key)
+        count = _count(match["count"], text)
+        if count == 1 and start != stop:
+            raise SweepError(f"--vary {text!r}: n=1 gives one value, but START and STOP "
+                             "differ; give n=2 or more, or a single value")
+        values = tuple(_clean(v) for v in np.linspace(start, stop, count))
+    elif spec and ":" not in spec:
+        values = tuple(_values(spec.split(","), text, key))
     else:
-        raise SweepError(f"--vary {text!r}: expected KEY=START:STOP:N or KEY=A,B,C")
+        raise SweepError(f"--vary {text!r}: expected {VARY_FORMS}, e.g. {VARY_EXAMPLE}")
     return Axis(key, values)
+
+
+def axis_text(axis: Axis, shown: int = 12) -> str:
+    """One line naming an axis and its values, for the terminal before a sweep starts."""
+    from ..tables import fmt
+
+    values = [fmt(v) for v in axis.values]
+    if len(values) > shown:
+        values = values[:shown // 2] + ["..."] + values[-shown // 2:]
+    count = len(axis.values)
+    return f"{axis.key}: {', '.join(values)} ({count} value{'s' if count != 1 else ''})"
 
 
 _SPREAD = re.compile(r"^(?:±|\+-|\+/-)?\s*([0-9.]+(?:[eE][+-]?[0-9]+)?(?:\s*[^\s%0-9.][^%]*)?)"

@@ -96,20 +96,68 @@ def _ends_in_newline(path: Path) -> bool:
 
 
 def result_columns(keys: Sequence[str], rows: Iterable[dict[str, Any]]) -> list[str]:
-    """Columns of results.csv: point, parameters, seed, verdict, figures, checks, message."""
-    checks: list[str] = []
+    """Columns of results.csv: point, parameters, seed, verdict, figures, checks, message.
+
+    Each test check gives ``passed.<check>`` (1 when it passed, 0 when not) and,
+    except ``stays up`` (whose figure is only the fall, already in ``status``),
+    ``measured.<check>_<unit>``, the figure compared with the check's limit.
+    """
+    checks: dict[str, dict[str, Any]] = {}
     for row in rows:
         for check in row.get("checks", []):
-            if check["column"] not in checks:
-                checks.append(check["column"])
-    check_columns = [c for name in checks for c in (name, f"{name}.passed")]
+            checks.setdefault(check["column"], check)
+    check_columns = [c for entry in checks.values() for c in _check_columns(entry)]
     return ["index", "cell", "sample", *keys, "seed", "status", "passed", *FIGURES,
             *check_columns, "message"]
+
+
+def _check_columns(entry: dict[str, Any]) -> list[str]:
+    name = _check_slug(entry)
+    passed = f"passed.{name}"
+    if name == "stays_up":
+        return [passed]
+    return [passed, "measured." + entry["column"].removeprefix("check.")]
+
+
+def _check_slug(entry: dict[str, Any]) -> str:
+    # rows stored before entries carried their name: the column less its unit suffix
+    return entry.get("name") or entry["column"].removeprefix("check.")
+
+
+# SI units of results.csv's columns, for its second header row
+COLUMN_UNITS = {"fell_at_s": "s", "max_abs_pitch_deg": "deg", "rms_pitch_deg": "deg",
+                "drift_m": "m", "max_drift_m": "m", "saturation_fraction": "fraction of ticks",
+                "mean_abs_duty": "duty (-1..1)", "duration_s": "s", "passed": "1 = passed",
+                "seed": "", "index": "unit:", "status": "", "message": ""}
+KEY_UNITS = {"mass": "kg", "radius": "m", "width": "m", "track": "m", "depth": "m",
+             "height": "m", "bottom": "m", "at": "m", "size": "m", "stall_torque": "N m",
+             "friction_torque": "N m", "static_friction_torque": "N m", "no_load_speed": "rad/s",
+             "rated_voltage": "V", "voltage_drop": "V", "cell_voltage": "V", "stall_current": "A",
+             "cell_resistance": "ohm", "rotor_inertia": "kg m^2", "pitch_inertia": "kg m^2",
+             "backlash": "rad", "rate": "Hz", "bandwidth": "Hz", "loop_jitter": "s",
+             "compute_time": "s", "friction": "", "gear_ratio": "", "cells": "",
+             "deadband": "", "pwm_bits": "", "counts_per_rev": ""}
+
+
+def column_unit(column: str, units: dict[str, str]) -> str:
+    """The unit written under ``column`` in results.csv's unit row."""
+    if column in COLUMN_UNITS:
+        return COLUMN_UNITS[column]
+    if column.startswith("passed."):
+        return "1 = passed"
+    if column.startswith("measured."):
+        return units.get(column, "")
+    if column.startswith("config."):
+        return "controller's own"
+    last = next((part for part in reversed(column.split(".")) if not part.isdigit()), "")
+    return KEY_UNITS.get(last, "SI" if column not in ("cell", "sample") else "")
 
 
 def _cell(value: Any) -> str:
     if value is None:
         return ""
+    if isinstance(value, bool):
+        return "1" if value else "0"
     if isinstance(value, float):
         return repr(value)
     return str(value)
@@ -120,21 +168,38 @@ def flat_row(row: dict[str, Any]) -> dict[str, Any]:
     flat = {k: v for k, v in row.items() if k not in ("values", "checks")}
     flat.update(row.get("values", {}))
     for check in row.get("checks", []):
-        flat[check["column"]] = check["value"]
-        flat[f"{check['column']}.passed"] = check["passed"]
+        columns = _check_columns(check)
+        flat[columns[0]] = check["passed"]
+        if len(columns) > 1:
+            flat[columns[1]] = check["value"]
     return flat
 
 
 def results_csv_text(keys: Sequence[str], rows: Sequence[dict[str, Any]]) -> str:
-    """results.csv as text (rows in the order given: callers sort by point number)."""
+    """results.csv as text (rows in the order given: callers sort by point number): a row
+    of column names, a row of units (its first cell ``unit:``), then one row per point."""
     columns = result_columns(keys, rows)
+    units = {}
+    for row in rows:
+        for check in row.get("checks", []):
+            measured = _check_columns(check)[1:]
+            if measured:
+                units.setdefault(measured[0], check.get("unit", ""))
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(columns)
+    writer.writerow([column_unit(c, units) for c in columns])
     for row in rows:
         flat = flat_row(row)
         writer.writerow([_cell(flat.get(c)) for c in columns])
     return buffer.getvalue()
+
+
+def read_results(path: Path) -> list[dict[str, str]]:
+    """results.csv's point rows as dicts of text (the unit row left out)."""
+    with path.open(encoding="utf-8", newline="") as stream:
+        rows = list(csv.DictReader(stream))
+    return [r for r in rows if r.get("index") != COLUMN_UNITS["index"]]
 
 
 def write_text_atomic(path: Path, text: str) -> None:

@@ -38,7 +38,7 @@ from ..runner import STATUS_COMPLETED, STATUS_FELL, STATUS_INTERRUPTED, RunSetti
 from ..tables import fmt
 from .executors import open_executor
 from .grid import TextTable, controller_label, make_common
-from .jobs import PointJob, RunCommon
+from .jobs import PointJob, RunCommon, check_name
 from .plan import CONFIG_PREFIX, SweepError, sample_seed
 from .store import write_text_atomic
 
@@ -140,8 +140,23 @@ class TuneResult:
 def _verdicts(runs: Sequence[dict[str, Any]]) -> str:
     if len(runs) == 1:
         run = runs[0]
-        return "passed" if run["passed"] else f"failed ({run['status']})"
+        return verdict_text(run)
     return f"{sum(1 for r in runs if r['passed'])}/{len(runs)} passed"
+
+
+def verdict_text(run: Mapping[str, Any]) -> str:
+    """A run's verdict in words: passed, fell (when), the controller failed, or the checks
+    it failed (a run that stayed up but missed a limit)."""
+    if run["passed"]:
+        return "passed"
+    status = run["status"]
+    if status == "fell":
+        when = run.get("fell_at_s")
+        return "fell" + ("" if when is None else f" at {float(when):.2f} s")
+    if status != "completed":
+        return status.replace("_", " ")
+    missed = [check_name(c) for c in run.get("checks", []) if not c["passed"]]
+    return "failed: " + ", ".join(missed) if missed else "failed"
 
 
 def _mean(runs: Sequence[dict[str, Any]], key: str) -> str:
