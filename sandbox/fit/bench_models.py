@@ -51,6 +51,35 @@ def swing_rate(t: np.ndarray, omega: float, damping: float, coulomb: float,
     return sol.y[1]
 
 
+def swing_rate_sensitivity(t: np.ndarray, omega: float, damping: float, coulomb: float,
+                           angle0: float, rate0: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pitch rate as :func:`swing_rate` and its derivatives with respect to (omega, damping,
+    coulomb, angle0, rate0), [n, 5], from the sensitivity equations S' = (∂f/∂y) S + ∂f/∂q
+    integrated with the motion (one solve instead of one per parameter)."""
+    eps = COULOMB_SMOOTHING
+
+    def rhs(_t, y):
+        phi, w = y[0], y[1]
+        s = y[2:].reshape(2, 5)
+        th = math.tanh(w / eps)
+        dfdy = np.array([[0.0, 1.0], [-omega * omega * math.cos(phi),
+                                      -damping - coulomb * (1 - th * th) / eps]])
+        dfdq = np.array([[0.0, 0.0, 0.0, 0.0, 0.0],
+                         [-2 * omega * math.sin(phi), -w, -th, 0.0, 0.0]])
+        ds = dfdy @ s + dfdq
+        return np.concatenate(([w, -omega * omega * math.sin(phi) - damping * w
+                                - coulomb * th], ds.ravel()))
+
+    t = np.asarray(t, dtype=float)
+    s0 = np.zeros((2, 5))
+    s0[0, 3] = s0[1, 4] = 1.0
+    y0 = np.concatenate(([angle0, rate0], s0.ravel()))
+    sol = solve_ivp(rhs, (t[0], t[-1]), y0, method="DOP853", t_eval=t, rtol=1e-8, atol=1e-10)
+    if not sol.success or sol.y.shape[1] != t.size:
+        return np.full(t.size, np.nan), np.full((t.size, 5), np.nan)
+    return sol.y[1], sol.y[2:].reshape(2, 5, -1)[1].T
+
+
 # ------------------------------------------------------------------ drop
 
 

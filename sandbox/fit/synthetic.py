@@ -49,9 +49,10 @@ def swing_log(body: PlanarBody, *, damping: float, angle0: float = math.radians(
     inertia = body.pivot_inertia + 2 * body.reflected_inertia
     free = t >= hold
     rate_true = np.zeros(t.size)
-    rate_true[free] = swing_rate(np.concatenate([[hold], t[free]]), body.hanging_omega(),
-                                 damping / inertia, 2 * body.friction_torque / inertia,
-                                 angle0, 0.0)[1:]
+    fine = np.arange(0.0, duration - hold + 1e-3, 1e-3)
+    rate_fine = swing_rate(fine, body.hanging_omega(), damping / inertia,
+                           2 * body.friction_torque / inertia, angle0, 0.0)
+    rate_true[free] = np.interp(t[free] - hold, fine, rate_fine)
     gyro = -rate_true + bias + noise * rng.standard_normal(t.size)  # upside down: y flips
     if raw:
         counts = np.round(np.degrees(gyro) * GYRO_COUNTS_PER_DEG_S)
