@@ -251,7 +251,7 @@ def _rising_stretch(t: np.ndarray, segment: np.ndarray) -> tuple[np.ndarray, int
     best_start = best_end = 0
     start = 0
     for i in range(1, t.size + 1):
-        if i == t.size or segment[i] != segment[i - 1] or t[i] < t[start]:
+        if i == t.size or (segment[i] != segment[i - 1] and t[i] <= t[i - 1]) or t[i] < t[start]:
             if i - start > best_end - best_start:
                 best_start, best_end = start, i
             start = i

@@ -81,12 +81,17 @@ def fit_swing(log: BenchLog) -> SwingFit:
                        f"{math.degrees(peak):.2f} deg/s): let the body swing from about 10 deg")
     centred = rate - np.median(rate)
     start = int(np.argmax(np.abs(centred) > 0.3 * peak))
-    end = int(np.searchsorted(t, t[start] + SWING_MAX_S))
+    noise = float(np.std(np.diff(rate[: max(start, 3)]))) / math.sqrt(2) + 1e-4
+    crossings = _crossings(centred[start:], max(5 * noise, 0.05 * peak))
+    if crossings.size < 4:
+        raise LogError(log.source, f"swing: only {crossings.size} half swing(s) after the "
+                       "release; let it swing from further out (10-20 deg) or with the motor "
+                       "leads unplugged, and log until it stops")
+    last = start + crossings[-1]
+    quarter = (crossings[-1] - crossings[0]) / (crossings.size - 1) / 2
+    end = min(int(last + quarter), int(np.searchsorted(t, t[start] + SWING_MAX_S)), t.size)
     ts, ys = t[start:end], rate[start:end]
-    crossings = np.flatnonzero(np.diff(np.sign(ys - np.median(ys))) != 0)
-    if crossings.size < 6 or ts[-1] - ts[0] < 1.0:
-        raise LogError(log.source, f"swing: only {crossings.size // 2} swing(s) logged after "
-                       "release; log at least 5 full swings (10 s or so)")
+    crossings = crossings[crossings < end - start]
     period = 2 * (ts[crossings[-1]] - ts[crossings[0]]) / (crossings.size - 1)
     omega0 = 2 * math.pi / period
     amp0 = float(np.max(np.abs(ys[: max(crossings[2], 3)] - np.median(ys))))
@@ -114,15 +119,33 @@ def fit_swing(log: BenchLog) -> SwingFit:
     centre = float(np.median(ys))
     rate0 = ys[0] - centre
     angle0 = -math.copysign(1.0, slope) * math.sqrt(max(amp0 ** 2 - rate0 ** 2, 0.0)) / omega0
-    guess = [omega0, 2 * decay, 0.0, angle0, rate0, centre]
-    best = least_squares(residual, guess, jac=jacobian, x_scale="jac",
-                         bounds=([0.1, 0.0, 0.0, -3.0, -50.0, -5.0],
-                                 [200.0, 50.0, 100.0, 3.0, 50.0, 5.0]))
+    lower = np.array([0.1, 0.0, 0.0, -3.0, -50.0, -5.0])
+    upper = np.array([200.0, 50.0, 100.0, 3.0, 50.0, 5.0])
+    guess = np.clip([omega0, 2 * decay, 1e-6, angle0, rate0, centre], lower + 1e-9,
+                    upper - 1e-9)
+    best = least_squares(residual, guess, jac=jacobian, x_scale="jac", bounds=(lower, upper))
     dof = max(best.fun.size - best.x.size, 1)
     cov = covariance(best.jac, best.fun)
     est = intervals(best.x, cov, dof)
     curves = {"t": ts, "log": ys, "model": ys + best.fun}
     return SwingFit(est[0], est[1], est[2], cov[:1, :1], dof, curves)
+
+
+def _crossings(values: np.ndarray, band: float) -> np.ndarray:
+    """Indices where a signal crosses zero, counted only after leaving a ±band (hysteresis,
+    so noise near the end of a swing does not count as swings)."""
+    out = []
+    state = 0
+    for i, v in enumerate(values):
+        if v > band and state <= 0:
+            if state < 0:
+                out.append(i)
+            state = 1
+        elif v < -band and state >= 0:
+            if state > 0:
+                out.append(i)
+            state = -1
+    return np.array(out, dtype=int)
 
 
 def fit_drop(log: BenchLog) -> DropFit:

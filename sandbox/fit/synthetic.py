@@ -99,3 +99,34 @@ def spin_log(drives: tuple[WheelDrive, WheelDrive], *, supply_voltage: float,
     return _csv(["t_s", "duty_l", "duty_r", "ticks_l", "ticks_r", "battery_v"],
                 [t, duty, duty, ticks[0], ticks[1], battery],
                 ["%.4f", "%.5f", "%.5f", "%.0f", "%.0f", "%.2f"], list(dropped))
+
+
+PLAY_LEVELS = (0.10, 0.16)  # duty levels of the play check, each +/- twice, 1 s per hold
+
+
+def play_duty(t: float) -> tuple[float, float]:
+    """The play check's duty at t s: 1 s rest, then +D, -D, +D, -D at each level, 1 s each."""
+    k = int(t) - 1
+    if k < 0 or k >= 4 * len(PLAY_LEVELS):
+        return 0.0, 0.0
+    level = PLAY_LEVELS[k // 4]
+    d = level if k % 2 == 0 else -level
+    return d, d
+
+
+def play_log(drives: tuple[WheelDrive, WheelDrive], *, supply_voltage: float,
+             voltage_drop: float, counts_per_rad: float, rate: float = 200.0,
+             seed: int = 0, dt: float = 2e-4) -> str:
+    """Play check log: the wheels clamped, the duty alternating gently (see play_duty)."""
+    from dataclasses import replace
+
+    rng = np.random.default_rng(seed)
+    held = tuple(replace(d, wheel_static=1e3, wheel_friction=1e3) for d in drives)
+    duration = 1.0 + 4 * len(PLAY_LEVELS) + 1.0
+    times, motor, _wheel = spin_motion(held, play_duty, duration, supply_voltage - voltage_drop,
+                                       dt=dt)
+    t = sample_times(duration, rate, 5e-4, rng)
+    ticks = [np.floor(np.interp(t, times, motor[:, k]) * counts_per_rad) for k in range(2)]
+    duty = np.array([play_duty(x)[0] for x in t])
+    return _csv(["t_s", "duty_l", "duty_r", "ticks_l", "ticks_r"],
+                [t, duty, duty, ticks[0], ticks[1]], ["%.4f", "%.3f", "%.3f", "%.0f", "%.0f"])
