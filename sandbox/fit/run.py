@@ -157,7 +157,7 @@ def fit_robot(robot: Path, *, swing: Path | None = None, spin: Path | None = Non
     result.notes.extend(figures_body.notes)
     if dr is not None:
         result.fits["drop"] = dr
-        pole = dr.pole
+        pole = figures_body.fall_pole or dr.pole
         _add(result, "drop.fall_pole", file_body.fall_pole(), pole, f"drop ({names['drop']})",
              written=False)
     if figures_body.com_height is not None:

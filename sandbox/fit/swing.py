@@ -217,6 +217,7 @@ class BodyFigures:
     pitch_inertia: Estimate | None   # kg·m², body about its centre of mass
     com_from: str = ""
     notes: tuple[str, ...] = ()
+    fall_pole: Estimate | None = None  # the drop's pole after the window-bias correction
 
 
 def body_figures(*, body_mass: float | None, swing: SwingFit | None, drop: DropFit | None,
@@ -293,7 +294,8 @@ def body_figures(*, body_mass: float | None, swing: SwingFit | None, drop: DropF
         def through(fn):
             return propagate(fn, values, cov, 1000)
 
-    return BodyFigures(d, through(pivot), through(centre), com_from, tuple(notes))
+    pole = drop.pole if drop is not None else None
+    return BodyFigures(d, through(pivot), through(centre), com_from, tuple(notes), pole)
 
 
 def _corrected(drop: DropFit, swing: SwingFit, m, g, wheel_mass, wheel_inertia, r, j, m11,
