@@ -74,8 +74,8 @@ def main() -> None:
     spec = secret_spec()
     body = secret_body()
     counts_per_rad = spec.encoders.counts_per_rev * spec.motors.gear_ratio / (2 * math.pi)
-    swing = swing_log(body, damping=3e-4, angle0=math.radians(20), noise=0.004, bias=0.01, jitter=1.5e-3, raw=True,
-                      seed=11, dropped=(700,))
+    swing = swing_log(body, damping=3e-4, angle0=math.radians(20), noise=0.004, bias=0.01,
+                      jitter=1.5e-3, raw=True, seed=11, dropped=(700,))
     # the drop's gearbox friction is left out: the fit's drop model has none (see README)
     drop = drop_log(PlanarBody(*[getattr(body, k) for k in (
         "body_mass", "pitch_inertia", "com_height", "wheel_mass", "wheel_inertia",

@@ -117,7 +117,8 @@ class PlanarBody:
 
     def _mass_terms(self, pitch: float) -> tuple[float, float, float]:
         r, j = self.wheel_radius, self.reflected_inertia
-        m11 = self.body_mass + 2 * self.wheel_mass + 2 * self.wheel_inertia / r ** 2 + 2 * j / r ** 2
+        m11 = (self.body_mass + 2 * self.wheel_mass + 2 * self.wheel_inertia / r ** 2
+               + 2 * j / r ** 2)
         m12 = self.body_mass * self.com_height * math.cos(pitch) - 2 * j / r
         m22 = self.pivot_inertia + 2 * j
         return m11, m12, m22

@@ -163,7 +163,8 @@ def fit_robot(robot: Path, *, swing: Path | None = None, spin: Path | None = Non
     if figures_body.com_height is not None:
         d = figures_body.com_height
         direction = fig.body.com / max(np.linalg.norm(fig.body.com[[0, 2]]), 1e-12)
-        src = f"{figures_body.com_from} ({', '.join(names[k] for k in ('swing', 'drop') if k in names)})"
+        used = ", ".join(names[k] for k in ("swing", "drop") if k in names)
+        src = f"{figures_body.com_from} ({used})"
         result.parameters.append(Parameter(
             "body.measured.com", fig.body.com.tolist(), (direction * d.value).tolist(),
             (direction * d.low).tolist(), (direction * d.high).tolist(), src))
