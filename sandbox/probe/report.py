@@ -104,7 +104,7 @@ def latency_margin(A: np.ndarray, B: np.ndarray, geometry: SensorGeometry, timin
 
 def analyze_controller(spec: Any, controller: str, config: dict | None = None, *,
                        rate_hz: float | None = None, latency: float = 0.0,
-                       physics_dt: float = 1e-3, sizes: ProbeSizes = ProbeSizes(),
+                       physics_dt: float = 1e-3, sizes: ProbeSizes | None = None,
                        accel_feels_motion: bool = True,
                        plot: Path | None = None) -> dict[str, Any]:
     """Everything ``analyze --controller`` reports, JSON-ready (see DESIGN.md's keys).
@@ -116,7 +116,7 @@ def analyze_controller(spec: Any, controller: str, config: dict | None = None, *
     rate = controller_rate(cls, rate_hz)
     spt = steps_per_tick(physics_dt, rate)
     facts = RobotFacts.from_spec(spec, rate, physics_dt)
-    found = identify(cls, config, facts, sizes)
+    found = identify(cls, config, facts, sizes or ProbeSizes())
     A, B = duty_input_model(PlanarParams.from_spec(spec))
     geometry = geometry_of(spec, facts)
     geometry = SensorGeometry(geometry.wheel_radius, geometry.counts_per_radian,
