@@ -626,7 +626,9 @@ def analyze(
         "--q", help="LQR state weights for x, v, pitch, pitch rate, e.g. 4,4,131,1.3 "
         "(default: Bryson's rule, see DEVELOPERS.md).")] = None,
     r: Annotated[float | None, typer.Option("--r", help="LQR duty weight (default 1).")] = None,
-    rate: Annotated[float, typer.Option("--rate", help="Controller rate, Hz.")] = 200.0,
+    rate: Annotated[float | None, typer.Option(
+        "--rate", help="Controller rate, Hz (default 200, or the --controller's rate_hz).")
+    ] = None,
     emit_config: Annotated[Path | None, typer.Option(
         "--emit-config", help="Write suggested gains as a config file for --config.")] = None,
     controller: Annotated[str, typer.Option(
@@ -638,16 +640,42 @@ def analyze(
     try_gains: Annotated[bool, typer.Option(
         "--try", help="Also run the example controllers with the suggested gains "
         "(20 s from 5 deg) and report whether they stay up.")] = False,
-    set_: RobotSetOption = None,
+    script: Annotated[str | None, typer.Option(
+        "--controller", help="Your controller script (file.py or file.py:Class): identify "
+        "its response and give its loop's poles and margins on this robot.")] = None,
+    config_file: ConfigOption = None,
+    latency: Annotated[float, typer.Option(
+        "--latency", help="With --controller: delay from the controller's output to the "
+        "bridge, ms (as `upright run --latency`).")] = 0.0,
+    plot: Annotated[Path | None, typer.Option(
+        "--plot", help="With --controller: write Bode and Nyquist plots of the loop (PNG).")
+    ] = None,
+    set_: SetOption = None,
 ) -> None:
-    """Linear model of the robot: poles, fall time, LQR gains, suggested starting gains."""
+    """Linear model of the robot: poles, fall time, LQR gains, suggested starting gains;
+    with --controller, your script's identified law and its loop's poles and margins."""
     from .analysis import analysis_table, config_yaml
     from .analysis import analyze as analyse_robot
     from .robot import load_robot
 
-    spec = load_robot(robot, parse_sets(set_))
+    robot_sets, config_sets = _split_sets(set_)
+    if script is None and (config_sets or config_file is not None or plot is not None):
+        raise BadInput("--config, --set config.KEY and --plot need --controller FILE.py")
+    if latency < 0:
+        raise BadInput(f"--latency must be zero or more ms, got {latency:g}")
+    spec = load_robot(robot, robot_sets)
     _print_warnings(spec, robot)
-    result = analyse_robot(spec, q_diag=_floats(q, 4, "--q"), r=r, rate_hz=rate)
+    probed = None
+    if script is not None:
+        from .control import controller_rate, load_controller_class
+        from .probe import analyze_controller
+
+        rate = controller_rate(load_controller_class(script), rate)
+        config = {**_load_config_file(config_file), **config_sets}
+        probed = analyze_controller(spec, script, config, rate_hz=rate,
+                                    latency=latency / 1000.0, plot=plot)
+    result = analyse_robot(spec, q_diag=_floats(q, 4, "--q"), r=r,
+                           rate_hz=200.0 if rate is None else rate)
     if emit_config is not None:
         emit_config.write_text(config_yaml(result, controller), encoding="utf-8")
     code = EXIT_OK
@@ -656,6 +684,8 @@ def analyze(
             from .identify import compare
 
             result["check"] = compare(spec)
+        if probed is not None:
+            result.update(probed)
         typer.echo(json.dumps(result, indent=2))
     else:
         typer.echo(analysis_table(result))
@@ -664,6 +694,11 @@ def analyze(
 
             typer.echo("")
             typer.echo(compare_table(compare(spec)))
+        if probed is not None:
+            from .probe import controller_table
+
+            typer.echo("")
+            typer.echo(controller_table(probed))
     if try_gains:
         from .identify import check_suggested, check_table
 
@@ -672,8 +707,11 @@ def analyze(
             typer.echo("")
             typer.echo(check_table(rows))
         code = EXIT_OK if all(row["status"] == "completed" for row in rows) else EXIT_FELL
-    if emit_config is not None and not as_json:
-        typer.echo(f"wrote {emit_config} (use it with --config)")
+    if not as_json:
+        if emit_config is not None:
+            typer.echo(f"wrote {emit_config} (use it with --config)")
+        if plot is not None:
+            typer.echo(f"wrote {plot}")
     raise typer.Exit(code)
 
 

@@ -19,6 +19,7 @@ import os
 import sys
 import traceback
 import warnings
+import weakref
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -37,11 +38,15 @@ __all__ = [
     "Reading",
     "RobotFacts",
     "Setpoint",
+    "TrackedConfig",
     "check_duties",
     "controller_rate",
     "load_controller_class",
     "make_controller",
     "script_location",
+    "tracked_config",
+    "unread_key_text",
+    "unread_keys",
 ]
 
 DEFAULT_CLASS_NAME = "Controller"
@@ -358,13 +363,135 @@ def controller_rate(cls: type, override: float | None) -> float:
     return float(value)
 
 
+class TrackedConfig(dict):
+    """The config mapping a controller receives: a real dict that records which keys it read.
+
+    Reads are ``config[key]``, ``get``, ``in``, ``setdefault`` and ``pop`` (that key);
+    anything that walks the whole mapping (iteration, ``keys``/``values``/``items``,
+    ``copy``, ``dict(config)``, ``{**config}``, comparison) counts as reading every key,
+    so a script that hands its config on never gets a false warning.
+    """
+
+    def __init__(self, *args: Any, **kwargs: Any):
+        super().__init__(*args, **kwargs)
+        self.read_keys: set = set()
+        self.read_all = False
+
+    def __getitem__(self, key: Any) -> Any:
+        self.read_keys.add(key)
+        return super().__getitem__(key)
+
+    def get(self, key: Any, default: Any = None) -> Any:
+        self.read_keys.add(key)
+        return super().get(key, default)
+
+    def __contains__(self, key: Any) -> bool:
+        self.read_keys.add(key)
+        return super().__contains__(key)
+
+    def setdefault(self, key: Any, default: Any = None) -> Any:
+        self.read_keys.add(key)
+        return super().setdefault(key, default)
+
+    def pop(self, key: Any, *default: Any) -> Any:
+        self.read_keys.add(key)
+        return super().pop(key, *default)
+
+    def _all(self) -> None:
+        self.read_all = True
+
+    def __iter__(self):
+        self._all()
+        return super().__iter__()
+
+    def keys(self):
+        self._all()
+        return super().keys()
+
+    def values(self):
+        self._all()
+        return super().values()
+
+    def items(self):
+        self._all()
+        return super().items()
+
+    def copy(self) -> dict:
+        self._all()
+        return dict(super().items())
+
+    def __eq__(self, other: object) -> bool:
+        self._all()
+        return super().__eq__(other)
+
+    __hash__ = None  # type: ignore[assignment]  # as dict
+
+    def __reduce_ex__(self, protocol: Any) -> Any:
+        self._all()
+        return super().__reduce_ex__(protocol)
+
+    def was_read(self, key: Any) -> bool:
+        """Whether the controller read ``key`` (or walked the whole mapping)."""
+        return self.read_all or key in self.read_keys
+
+
+# controller instance -> the TrackedConfig it was built with (see tracked_config)
+_CONFIGS: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_CONFIGS_BY_ID: dict[int, tuple[Any, TrackedConfig]] = {}  # instances without weak references
+_MAX_BY_ID = 8
+
+
+def tracked_config(controller: Any) -> TrackedConfig | None:
+    """The :class:`TrackedConfig` that :func:`make_controller` gave ``controller``, or None."""
+    try:
+        return _CONFIGS.get(controller)
+    except TypeError:  # not weakly referenceable or not hashable
+        held = _CONFIGS_BY_ID.get(id(controller))
+        return held[1] if held is not None and held[0] is controller else None
+
+
+def _remember(controller: Any, config: TrackedConfig) -> None:
+    try:
+        _CONFIGS[controller] = config
+    except TypeError:
+        if len(_CONFIGS_BY_ID) >= _MAX_BY_ID:
+            _CONFIGS_BY_ID.pop(next(iter(_CONFIGS_BY_ID)))
+        _CONFIGS_BY_ID[id(controller)] = (controller, config)
+
+
+def unread_keys(config: TrackedConfig | None, given_keys: Any) -> list[tuple[str, str | None]]:
+    """``(key, nearest read key or None)`` for each of ``given_keys`` the controller never read.
+
+    ``given_keys``: the config keys the user gave (``--set config.KEY``, ``--config``,
+    ``--vary``, ``tune --gains``), without the ``config.`` prefix. The suggestion is the
+    closest key the controller did read (a likely typo), by :func:`sandbox.robot.nearest_key`.
+    """
+    if config is None or config.read_all:
+        return []
+    from .robot import nearest_key
+
+    known = sorted(k for k in config.read_keys if isinstance(k, str))
+    out = []
+    for key in dict.fromkeys(given_keys):
+        if not config.was_read(key):
+            out.append((str(key), nearest_key(str(key), known)))
+    return out
+
+
+def unread_key_text(key: str, nearest: str | None, script: str) -> str:
+    """``config.tilt_kpp: never read by controllers/cascade.py (did you mean tilt_kp?)``."""
+    hint = f" (did you mean {nearest}?)" if nearest else " (the script reads no key like it)"
+    return f"config.{key}: never read by {script}{hint}"
+
+
 def make_controller(cls: type, config: dict | None, robot: RobotFacts) -> Any:
     """Instantiate ``cls(config, robot)``; a failure becomes :class:`ControllerError`.
 
-    ``config`` (plain dict of user gains) is copied, so the controller cannot change
-    the caller's values.
+    ``config`` (plain dict of user gains) is copied into a :class:`TrackedConfig`, so
+    the controller cannot change the caller's values and the keys it reads are
+    recorded; :func:`tracked_config` finds that mapping again from the instance.
     """
-    config = dict(config or {})
+    config = TrackedConfig(config or {})
     name = getattr(cls, "__name__", "controller")
     try:
         signature = inspect.signature(cls)
@@ -378,11 +505,13 @@ def make_controller(cls: type, config: dict | None, robot: RobotFacts) -> Any:
                 f"{name}(config, robot) does not fit its __init__ signature: {err}"
             ) from err
     try:
-        return cls(config, robot)
+        controller = cls(config, robot)
     except Exception as err:
         where = script_location(err, cls)
         at = f" ({where})" if where else ""
         raise ControllerError(f"{name}.__init__ raised {type(err).__name__}: {err}{at}") from err
+    _remember(controller, config)
+    return controller
 
 
 _SIDES = ("left", "right")
