@@ -659,3 +659,7 @@ def tune(
     if result.stopped == "interrupted":
         raise typer.Exit(EXIT_INTERRUPTED)
     raise typer.Exit(EXIT_OK if result.after.passed else EXIT_FELL)
+
+
+if __name__ == "__main__":
+    app()

@@ -30,11 +30,13 @@ from .control import (
     RobotFacts,
     check_duties,
     controller_rate,
+    failure_text,
     load_controller_class,
-    make_controller,
     script_location,
 )
 from .imu import Encoders, Imu
+from .interrupts import is_user_interrupt
+from .isolate import build_controller
 from .metrics import run_figures
 from .record import TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
@@ -64,6 +66,8 @@ class RunSettings:
     latency: float = 0.0  # controller output delay before the bridge
     fall_limit: float = math.radians(60.0)
     test_name: str = "none"
+    isolate: bool = False  # the controller in a process of its own (sandbox.isolate)
+    step_timeout: float = 1.0  # s of wall clock per controller call, when isolated
 
 
 @dataclass
@@ -170,7 +174,7 @@ class Simulation:
         every_step = not sensor_latency_steps and abs(imu_rate * dt - 1.0) < 1e-9
         sampled_now = False
         try:
-            controller = make_controller(self.controller_class, s.config, self.robot_facts)
+            controller = build_controller(self.controller_class, s, self.robot_facts)
             if hasattr(controller, "reset"):
                 _call(controller.reset, "reset", 0.0, self.controller_class)
             pending: deque[tuple[int, float, float]] = deque()  # (apply at step, left, right)
@@ -219,12 +223,14 @@ class Simulation:
                     reading.setpoint = timeline.setpoint
                 try:
                     out = step_controller(reading)
-                except Exception as err:
+                except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
+                    if is_user_interrupt(err):
+                        raise
                     raise _failure(err, "step", t, self.controller_class) from err
                 try:
                     left, right, was_clipped = check_duties(out)
-                except ControllerError as err:
-                    raise ControllerError(f"at t = {t:.3f} s: step {err}") from None
+                except Exception as err:  # a returned object whose iteration raises, too
+                    raise _failure(err, "step", t, self.controller_class) from None
                 clipped += was_clipped
                 pending.append((step + latency_steps, left, right))
                 # -- the trace row
@@ -368,14 +374,16 @@ def _failure(err: Exception, name: str, t: float, cls: type) -> ControllerError:
         return ControllerError(f"at t = {t:.3f} s: {err}")
     where = script_location(err, cls)
     at = f" ({where})" if where else ""
-    return ControllerError(f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}")
+    return ControllerError(f"at t = {t:.3f} s: {failure_text(name + '()', err)}{at}")
 
 
 def _call(method: Callable, name: str, t: float, cls: type, *args):
     """Call a controller method; anything it raises becomes a ControllerError naming t."""
     try:
         return method(*args)
-    except Exception as err:
+    except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
+        if is_user_interrupt(err):
+            raise
         raise _failure(err, name, t, cls) from err
 
 
