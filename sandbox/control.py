@@ -40,6 +40,7 @@ __all__ = [
     "Setpoint",
     "TrackedConfig",
     "check_duties",
+    "duty_floats",
     "controller_rate",
     "load_controller_class",
     "make_controller",
@@ -506,12 +507,33 @@ def make_controller(cls: type, config: dict | None, robot: RobotFacts) -> Any:
             ) from err
     try:
         controller = cls(config, robot)
-    except Exception as err:
+    except BaseException as err:  # SystemExit and the like too; the user's Ctrl-C goes on
+        from .interrupts import is_user_interrupt
+
+        if is_user_interrupt(err):
+            raise
         where = script_location(err, cls)
         at = f" ({where})" if where else ""
-        raise ControllerError(f"{name}.__init__ raised {type(err).__name__}: {err}{at}") from err
+        raise ControllerError(f"{failure_text(name + '.__init__', err)}{at}") from err
     _remember(controller, config)
     return controller
+
+
+def failure_text(call: str, err: BaseException) -> str:
+    """``"step() raised ValueError: text"``, ``"step() called sys.exit(0)"`` for ``call``
+    ``"step()"``; never raises."""
+    if isinstance(err, SystemExit):
+        return f"{call} called sys.exit({_safe_text(err.code, repr)})"
+    text = _safe_text(err, str)
+    return f"{call} raised {type(err).__name__}: {text}"
+
+
+def _safe_text(value: Any, show) -> str:
+    try:
+        text = show(value)
+    except BaseException:  # a hostile __str__/__repr__
+        return f"<{type(value).__name__} that cannot be shown>"
+    return text if len(text) <= 500 else text[:500] + "..."
 
 
 _SIDES = ("left", "right")
@@ -563,7 +585,27 @@ def _shape_problem(out: Any) -> str:
     return f"step() returned {count} values, {expected}"
 
 
+def duty_floats(out: Any) -> tuple[float, float]:
+    """What ``step`` returned as two floats, unclipped (NaN and inf kept); the checks of
+    :func:`check_duties` short of the range. Raises :class:`ControllerError`."""
+    try:
+        left, right = out
+    except (TypeError, ValueError):
+        raise ControllerError(_shape_problem(out)) from None
+    return _duty_number(left, 0, out), _duty_number(right, 1, out)
+
+
 def _duty_number(value: Any, index: int, out: Any) -> float:
+    try:
+        return _duty_float(value, index, out)
+    except OverflowError:
+        digits = (f" (about {int(value.bit_length() * 0.30103) + 1} digits)"
+                  if isinstance(value, int) else "")
+        raise ControllerError(f"step() returned a number too large for a float{digits} for "
+                              f"the {_SIDES[index]} duty") from None
+
+
+def _duty_float(value: Any, index: int, out: Any) -> float:
     if isinstance(value, (float, int)) and not isinstance(value, bool):  # incl. numpy float64
         return float(value)
     if len(getattr(out, "shape", (2,))) != 1:  # a 2×N array unpacks into rows

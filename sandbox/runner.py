@@ -31,11 +31,13 @@ from .control import (
     RobotFacts,
     check_duties,
     controller_rate,
+    failure_text,
     load_controller_class,
-    make_controller,
     script_location,
 )
 from .imu import Encoders, Imu
+from .interrupts import is_user_interrupt
+from .isolate import IsolatedController, build_controller
 from .metrics import run_figures
 from .record import TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
@@ -66,6 +68,8 @@ class RunSettings:
     latency: float = 0.0  # controller output delay before the bridge
     fall_limit: float = math.radians(60.0)
     test_name: str = "none"
+    isolate: bool = False  # the controller in a process of its own (sandbox.isolate)
+    step_timeout: float = 1.0  # s of wall clock per controller call, when isolated
 
 
 @dataclass
@@ -155,6 +159,8 @@ class Simulation:
         except KeyboardInterrupt:
             loop.status, loop.message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
         finally:
+            if isinstance(loop.controller, IsolatedController):
+                loop.controller.close()  # its process and scratch folder
             try:
                 writer.close()
             finally:
@@ -233,8 +239,7 @@ class _Loop:
 
     def run(self) -> None:
         sim = self.sim
-        self.controller = make_controller(sim.controller_class, sim.settings.config,
-                                          sim.robot_facts)
+        self.controller = build_controller(sim.controller_class, sim.settings, sim.robot_facts)
         if hasattr(self.controller, "reset"):
             _call(self.controller.reset, "reset", 0.0, sim.controller_class)
         for tick in range(self.n_ticks + 1):
@@ -284,14 +289,14 @@ class _Loop:
             r.setpoint = self.timeline.setpoint
         try:
             out = self.controller.step(r)
-        except BaseException as err:
-            if isinstance(err, KeyboardInterrupt):
+        except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
+            if is_user_interrupt(err):
                 raise
             raise _failure(err, "step", t, self.sim.controller_class) from err
         try:
             left, right, was_clipped = check_duties(out)
-        except ControllerError as err:
-            raise ControllerError(f"at t = {t:.3f} s: {err}") from None
+        except Exception as err:  # a returned object whose iteration raises, too
+            raise _failure(err, "step", t, self.sim.controller_class) from None
         self.clipped += was_clipped
         self.duties.send(self.step, left, right)
         return left, right
@@ -331,17 +336,15 @@ def _failure(err: BaseException, name: str, t: float, cls: type) -> ControllerEr
         return ControllerError(f"at t = {t:.3f} s: {err}")
     where = script_location(err, cls)
     at = f" ({where})" if where else ""
-    if isinstance(err, SystemExit):
-        return ControllerError(f"at t = {t:.3f} s: {name}() called sys.exit({err.code!r}){at}")
-    return ControllerError(f"at t = {t:.3f} s: {name}() raised {type(err).__name__}: {err}{at}")
+    return ControllerError(f"at t = {t:.3f} s: {failure_text(name + '()', err)}{at}")
 
 
 def _call(method: Callable, name: str, t: float, cls: type, *args):
     """Call a controller method; anything it raises becomes a ControllerError naming t."""
     try:
         return method(*args)
-    except BaseException as err:
-        if isinstance(err, KeyboardInterrupt):
+    except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
+        if is_user_interrupt(err):
             raise
         raise _failure(err, name, t, cls) from err
 

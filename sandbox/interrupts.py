@@ -1,0 +1,82 @@
+"""Telling the user's Ctrl-C from a KeyboardInterrupt a controller raises, and holding a
+Ctrl-C back while a message is half written.
+
+Python turns SIGINT into ``KeyboardInterrupt`` wherever the main thread happens to be,
+and a controller script can raise the same exception itself. :func:`install` replaces
+Python's default SIGINT handler with one that behaves the same but counts the
+signals, so :func:`is_user_interrupt` can tell the two apart. :func:`deferred` holds
+a Ctrl-C back for the length of a short critical section (one message to the
+trace-writing process) and raises it at the end, so no message is ever torn.
+"""
+
+from __future__ import annotations
+
+import signal
+import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+_signals_seen = 0  # SIGINTs taken by our handler, not yet matched to a KeyboardInterrupt
+_installed = False
+
+
+def _on_sigint(signum, frame) -> None:
+    global _signals_seen
+    _signals_seen += 1
+    raise KeyboardInterrupt
+
+
+def install() -> bool:
+    """Count Ctrl-Cs from now on (main thread, default handler only). True when counting."""
+    global _installed
+    if threading.current_thread() is not threading.main_thread():
+        return _installed
+    current = signal.getsignal(signal.SIGINT)
+    if current is signal.default_int_handler:
+        signal.signal(signal.SIGINT, _on_sigint)
+        _installed = True
+    elif current is _on_sigint:
+        _installed = True
+    else:
+        _installed = False
+    return _installed
+
+
+def is_user_interrupt(err: BaseException) -> bool:
+    """Whether ``err`` is a Ctrl-C from the user (a signal), not one a controller raised.
+
+    Without our handler in place every KeyboardInterrupt counts as the user's.
+    """
+    global _signals_seen
+    if not isinstance(err, KeyboardInterrupt):
+        return False
+    if not _installed or signal.getsignal(signal.SIGINT) is not _on_sigint:
+        return True
+    if _signals_seen > 0:
+        _signals_seen = 0
+        return True
+    return False
+
+
+@contextmanager
+def deferred() -> Iterator[None]:
+    """Hold a Ctrl-C until the block ends, then raise it (main thread; elsewhere a no-op,
+    since only the main thread ever gets the KeyboardInterrupt of a signal)."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    pending: list[int] = []
+    try:
+        previous = signal.signal(signal.SIGINT, lambda signum, frame: pending.append(signum))
+    except (ValueError, OSError):  # no signals here (an embedded interpreter)
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if pending:
+        if callable(previous):
+            previous(signal.SIGINT, None)
+        elif previous == signal.SIG_DFL:
+            raise KeyboardInterrupt
