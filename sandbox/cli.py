@@ -311,6 +311,8 @@ def _controller_label(controller: str) -> str:
 
 def _print_run(result, folder: Path | None) -> None:
     s = result.summary
+    for item in s.get("unread_config_keys") or ():
+        typer.echo(f"warning: {item['text']}", err=True)
     deg = lambda v: "-" if v is None else f"{v:.2f} deg"  # noqa: E731
     rows = [
         ("status", s["status"]),

@@ -250,6 +250,9 @@ class Imu:
         self.filtering = any(f is not None for f in self._filters)
         self._fed: tuple[Vector3, Vector3] | None = None
         self._fresh = False  # fed since the last read
+        # set by a loop that feeds every sample and passes read() the fed values of the
+        # sample it reads (with sensor latency not always the last one fed)
+        self.fed_by_loop = False
 
     def _turned(self, true_rate: Vector3, true_force: Vector3) -> tuple[Vector3, Vector3]:
         """The true vectors in the board's axes, scale errors applied."""
@@ -331,7 +334,9 @@ class Imu:
             raise ValueError(f"samples_elapsed must be >= 0, got {samples_elapsed!r}")
         if samples_elapsed:
             self._usual_scale = walk_scale
-        if self.filtering:
+        if self.filtering and self.fed_by_loop:
+            pass  # the loop passes the values feed() returned for the sample it reads
+        elif self.filtering:
             if not self._fresh:  # a loop that does not feed: hold this truth over the samples
                 for _ in range(max(samples_elapsed, 1)):
                     self.feed(true_rate, true_specific_force)

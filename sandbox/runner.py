@@ -34,11 +34,15 @@ from .control import (
     failure_text,
     load_controller_class,
     script_location,
+    tracked_config,
+    unread_key_text,
+    unread_keys,
 )
 from .imu import Encoders, Imu
 from .interrupts import is_user_interrupt
 from .isolate import IsolatedController, build_controller
 from .metrics import run_figures
+from .rates import nearby_rates
 from .record import TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
 from .schedule import DutyLine, ImuSamples, TickClock, imu_truth
@@ -93,14 +97,9 @@ def steps_per_tick(physics_dt: float, rate_hz: float) -> int:
         raise TimingError(
             f"the physics step ({physics_dt * 1000:g} ms) must divide the controller period "
             f"({1000 / rate_hz:g} ms at {rate_hz:g} Hz): choose a rate such as "
-            f"{_nearby_rates(physics_dt)}"
+            f"{nearby_rates(physics_dt, rate_hz)}"
         )
     return steps
-
-
-def _nearby_rates(physics_dt: float) -> str:
-    base = 1.0 / physics_dt
-    return ", ".join(f"{base / n:g} Hz" for n in (2, 4, 5, 10))
 
 
 class Simulation:
@@ -190,6 +189,11 @@ class Simulation:
             "test": s.test_name,
             "dropped_log_channels": sorted(getattr(writer, "dropped_channels", ())),
         }
+        if s.config and loop.controller is not None:
+            unread = unread_keys(tracked_config(loop.controller), s.config)
+            summary["unread_config_keys"] = [
+                {"key": key, "did_you_mean": near,
+                 "text": unread_key_text(key, near, s.controller)} for key, near in unread]
         if loop.clock.jittered:
             intervals = loop.clock.intervals()[: max(loop.ticks_run - 1, 0)]
             summary["tick_interval_std_s"] = float(intervals.std()) if intervals.size else 0.0
@@ -219,7 +223,7 @@ class _Loop:
         self.duties = DutyLine(sim.latency_steps)
         self.drive = DriveTrain(spec)
         self.imu = Imu(spec.imu, seed=s.seed)
-        self.encoders = Encoders(spec.encoders.counts_per_rev, spec.motors.gear_ratio)
+        self.encoders = Encoders.from_spec(spec)
         self.mount = tuple(float(v) for v in spec.imu.at)
         gravity = world.gravity_vector()
         coupled = world.reflected_inertia > 0.0  # the world then reads the body every step

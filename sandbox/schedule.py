@@ -162,6 +162,8 @@ class ImuSamples:
         self.gravity = gravity
         self.coupled = coupled
         self.filtering = bool(getattr(imu, "filtering", False))
+        if self.filtering:
+            imu.fed_by_loop = True
         self.every_step = not self.latency_steps and abs(imu_rate * physics_dt - 1.0) < 1e-9
         self.fast = coupled and not self.latency_steps and not self.filtering
         self.at_tick = False  # the sample the next tick sees is taken at the tick
