@@ -16,6 +16,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .analysis import PlanarParams
+from .gearbox import CouplingGains
 from .robot import RobotSpec
 from .urdf import WHEEL_JOINTS, robot_urdf
 
@@ -312,8 +314,11 @@ class World:
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
         # the cross term couples wheel and body and is applied here every step.
         self.reflected_inertia = spec.figures.reflected_inertia if rotor_coupling else 0.0
+        self._coupling = (CouplingGains.from_params(PlanarParams.from_spec(spec))
+                          if self.reflected_inertia > 0.0 else None)
         self._axle_axis = (0.0, 1.0, 0.0)
-        self._last_rates: tuple[float, float, float] | None = None
+        # (pitch rate, wheel rates (absolute), total motor torque) at the last step's start
+        self._last_rates: tuple[float, float, float, float] | None = None
         # the body's (velocity, angular velocity) read at the start of the last step
         # by the rotor coupling, or None: lets the IMU model skip a read
         self.velocity_before_step: tuple | None = None
@@ -324,7 +329,10 @@ class World:
         self._clear_tilt = self._tilt_before_touching()
         # what advance() binds to local names on every call (once per controller tick)
         self._hot_names = (self.robot_id, self.wheel_joints, self.client, self.dt, 1.0 / self.dt,
-                           self.reflected_inertia, pb.getJointStates, pb.getBaseVelocity,
+                           self.reflected_inertia,
+                           (0.0, 0.0) if self._coupling is None else
+                           (self._coupling.pitch, self._coupling.wheels),
+                           pb.getJointStates, pb.getBaseVelocity,
                            pb.applyExternalTorque, pb.setJointMotorControlArray,
                            pb.stepSimulation, pb.TORQUE_CONTROL, pb.WORLD_FRAME)
         self._push: list | None = None  # [steps left, force (world), point (body frame)]
@@ -499,8 +507,8 @@ class World:
         first step uses the reads of the present instant if the controller
         tick already made them.
         """
-        (robot, joints, client, dt, inv_dt, j, read, read_body, push_body, apply, step,
-         torque_mode, world_frame) = self._hot_names
+        (robot, joints, client, dt, inv_dt, j, (pitch_gain, wheels_gain), read, read_body,
+         push_body, apply, step, torque_mode, world_frame) = self._hot_names
         motors = drive.step
         ax, ay, az = self._axle_axis
         last = self._last_rates
@@ -521,8 +529,10 @@ class World:
                 # Rotor coupling. The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇
                 # that link inertias cannot hold: it gives +Jθ̈ on each wheel (as a joint
                 # torque) and +Jφ̈ on the body (the joint's reaction is undone by an
-                # external torque). The accelerations are the previous step's, from
-                # velocity differences.
+                # external torque). The accelerations of this step are predicted: the
+                # previous step's (from velocity differences) plus what the change of
+                # motor torque adds through the planar mass matrix; on the first step
+                # after a release, the planar model's accelerations from rest.
                 if velocity_now is None:
                     velocity = read_body(robot, physicsClientId=client)
                 else:
@@ -530,21 +540,38 @@ class World:
                     velocity_now = None
                 w = velocity[1]
                 body_rate = w[0] * ax + w[1] * ay + w[2] * az
-                now = (body_rate, rate_left + body_rate, rate_right + body_rate)
+                torque = torque_left + torque_right
+                now = (body_rate, rate_left + body_rate, rate_right + body_rate, torque)
                 if last is not None:
-                    body_acc = (body_rate - last[0]) * inv_dt
-                    body_torque = j * ((now[1] - last[1]) * inv_dt + (now[2] - last[2]) * inv_dt
-                                       + 2.0 * body_acc)
-                    push_body(robot, -1, (ax * body_torque, ay * body_torque, az * body_torque),
-                              world_frame, physicsClientId=client)
-                    torque_left += j * body_acc
-                    torque_right += j * body_acc
+                    change = torque - last[3]
+                    body_acc = (body_rate - last[0]) * inv_dt + pitch_gain * change
+                    wheels_acc = ((now[1] - last[1]) * inv_dt + (now[2] - last[2]) * inv_dt
+                                  + wheels_gain * change)
+                else:
+                    body_acc, wheels_acc = self._coupling.accelerations(
+                        torque, self._gravity_torque())
+                body_torque = j * (wheels_acc + 2.0 * body_acc)
+                push_body(robot, -1, (ax * body_torque, ay * body_torque, az * body_torque),
+                          world_frame, physicsClientId=client)
+                torque_left += j * body_acc
+                torque_right += j * body_acc
                 last = now
                 self.velocity_before_step = velocity
             apply(robot, joints, torque_mode, forces=(torque_left, torque_right),
                   physicsClientId=client)
             step(physicsClientId=client)
         self._last_rates = last
+
+    def _gravity_torque(self) -> float:
+        """Gravity's torque on the body about the axle axis now (N·m, + leaning forward)."""
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=self.client)
+        r = pb.getMatrixFromQuaternion(quat, physicsClientId=self.client)
+        if not self._identity_inertial:
+            r = _matmul(r, self._body_from_inertial)
+        lx, ly, lz = self._com_local_tuple
+        cx, cy = r[0] * lx + r[1] * ly + r[2] * lz, r[3] * lx + r[4] * ly + r[5] * lz
+        ax, ay, _ = r[1], r[4], r[7]
+        return self.spec.figures.body.mass * self.gravity * (cx * ay - cy * ax)
 
     def _advance_pushed(self, steps: int, drive) -> None:
         """Step one at a time while a push lasts (the force is re-applied every step)."""
@@ -795,3 +822,4 @@ class World:
         pb.resetBasePositionAndOrientation(self.robot_id, com, orientation, physicsClientId=c)
         pb.resetBaseVelocity(self.robot_id, velocity, angular_velocity, physicsClientId=c)
         self._forget_reads()
+        self._last_rates = None  # velocities jumped: no acceleration to carry over
