@@ -19,7 +19,7 @@ import numpy as np
 from .analysis import PlanarParams
 from .gearbox import CouplingGains
 from .robot import RobotSpec
-from .urdf import WHEEL_JOINTS, robot_urdf
+from .urdf import WHEEL_JOINTS, robot_urdf, wheel_of
 
 
 @contextmanager
@@ -283,6 +283,11 @@ class World:
     ):
         self.spec = spec
         self.dt = float(physics_dt)
+        # per-side wheels: the axle centre sits at the mean radius, rolled so both touch
+        left, right = wheel_of(spec, "left").radius, wheel_of(spec, "right").radius
+        self.wheel_radii = (left, right)
+        self._axle_height = 0.5 * (left + right)
+        self._roll = math.asin((left - right) / spec.wheels.track) if left != right else 0.0
         self.gravity = float(gravity)
         self.ground = ground or Ground(friction=spec.wheels.friction,
                                        rolling_resistance=spec.wheels.rolling_resistance)
@@ -355,7 +360,7 @@ class World:
             normal = np.array(self._floor_normal)
             sink = float(np.dot(state.axle, normal))
             target_axle = normal * sink
-            link_quat = pb.getQuaternionFromEuler([0, tilt, 0])
+            link_quat = pb.getQuaternionFromEuler([self._roll, tilt, 0])
             rotation = np.array(pb.getMatrixFromQuaternion(link_quat)).reshape(3, 3)
             com = target_axle + rotation @ self._com_local
             quat = pb.multiplyTransforms([0, 0, 0], link_quat, [0, 0, 0],
@@ -415,7 +420,7 @@ class World:
         # Bullet combines rolling friction as floor.rolling × wheel.friction (1 here):
         # the rolling resistance coefficient times the wheel radius is a torque per newton.
         pb.changeDynamics(body, -1, lateralFriction=friction,
-                          rollingFriction=g.rolling_resistance * self.spec.wheels.radius,
+                          rollingFriction=g.rolling_resistance * self._axle_height,
                           spinningFriction=g.spinning_friction, physicsClientId=self.client)
 
     def _make_heightfield(self, rough: Rough) -> int:
@@ -444,8 +449,8 @@ class World:
             handle.write(text)
             path = handle.name
         try:
-            axle = np.array(self._floor_normal) * self.spec.wheels.radius
-            orientation = pb.getQuaternionFromEuler([0, tilt, 0])
+            axle = np.array(self._floor_normal) * self._axle_height
+            orientation = pb.getQuaternionFromEuler([self._roll, tilt, 0])
             with quiet():
                 robot = pb.loadURDF(path, axle.tolist(), orientation, flags=LOAD_FLAGS,
                                     physicsClientId=c)
@@ -726,7 +731,7 @@ class World:
 
     def _tilt_before_touching(self) -> float:
         """Smallest tilt (rad) at which a corner of a body box reaches flat floor."""
-        radius = self.spec.wheels.radius
+        radius = min(self.wheel_radii)
         corners = [(b.at[0] + sx * b.size[0] / 2, b.at[2] + sz * b.size[2] / 2)
                    for b in self.spec.figures.boxes for sx in (-1, 1) for sz in (-1, 1)]
         for degrees in range(0, 91):
