@@ -112,6 +112,18 @@ class Motors(Section):
     gear_ratio: float = Field(default=48.0, ge=1.0)
     rotor_inertia: Inertia = Field(default=1.0e-7, ge=0)  # at the motor shaft
     friction_torque: Torque = Field(default=0.005, ge=0)  # Coulomb, at the output shaft
+    # total free play at the output shaft (an angle); the motor side needs a rotor inertia
+    backlash: Annotated[float, _si("angle")] = Field(default=0.0, ge=0, le=math.pi / 6)
+
+    @model_validator(mode="after")
+    def _backlash_needs_rotor(self) -> Motors:
+        if self.backlash > 0 and self.rotor_inertia == 0:
+            raise ValueError(
+                "backlash needs a rotor inertia: the play is crossed by the motor side "
+                "(rotor and gears), which has no inertia when motors.rotor_inertia is 0; "
+                "give motors.rotor_inertia (at the motor shaft, kg*m^2, e.g. 1e-7) or set "
+                "motors.backlash to 0")
+        return self
 
 
 class Driver(Section):

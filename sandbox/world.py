@@ -17,7 +17,8 @@ from typing import NamedTuple
 import numpy as np
 
 from .analysis import PlanarParams
-from .gearbox import CouplingGains
+from .gearbox import Backlash, ContactDesign, CouplingGains
+from .inertia import cylinder_inertia_y
 from .robot import RobotSpec
 from .urdf import WHEEL_JOINTS, robot_urdf, wheel_of
 
@@ -244,6 +245,11 @@ def _point_velocity(state: BodyState, velocity: Vector, omega: Vector, point: Ve
             velocity[2] + ox * dy - oy * dx)
 
 
+def cylinder_axle_inertia(wheel) -> float:
+    """A wheel's inertia about its axle (kg·m², solid cylinder, m r²/2)."""
+    return float(cylinder_inertia_y(wheel.mass, wheel.radius, wheel.width)[1, 1])
+
+
 def _cross(a: Vector, b: Vector) -> Vector:
     return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
 
@@ -293,6 +299,10 @@ class World:
                                        rolling_resistance=spec.wheels.rolling_resistance)
         slope = self.ground.slope
         self._floor_normal = (-math.sin(slope), 0.0, math.cos(slope))
+        # With backlash the rotor is the gearbox's motor side (sandbox.gearbox), joined to
+        # the wheel through the play: the wheels in the engine carry no rotor inertia.
+        self.backlash = float(getattr(spec.motors, "backlash", 0.0))
+        self._gearbox: Backlash | None = None
         with quiet():
             self.client = pb.connect(pb.DIRECT)
         c = self.client
@@ -319,6 +329,9 @@ class World:
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
         # the cross term couples wheel and body and is applied here every step.
         self.reflected_inertia = spec.figures.reflected_inertia if rotor_coupling else 0.0
+        if self.backlash > 0.0:
+            self._gearbox = self._make_gearbox()
+            self.reflected_inertia = 0.0  # no cross term: the rotor is not on the wheels
         self._coupling = (CouplingGains.from_params(PlanarParams.from_spec(spec))
                           if self.reflected_inertia > 0.0 else None)
         self._axle_axis = (0.0, 1.0, 0.0)
@@ -444,7 +457,8 @@ class World:
 
     def _spawn(self, tilt: float) -> int:
         c = self.client
-        text = robot_urdf(self.spec, with_reflected_inertia=True)
+        text = robot_urdf(self.spec, with_reflected_inertia=True,
+                          reflected_on_wheels=self.backlash == 0.0)
         with tempfile.NamedTemporaryFile("w", suffix=".urdf", delete=False) as handle:
             handle.write(text)
             path = handle.name
@@ -520,6 +534,9 @@ class World:
         if self._push is not None:
             self._advance_pushed(steps, drive)
             return
+        if self._gearbox is not None:
+            self._advance_geared(steps, drive)
+            return
         joints_now, velocity_now = self._joints_now, self._velocity_now
         self._joints_now = self._velocity_now = None
         for _ in range(steps):
@@ -566,6 +583,54 @@ class World:
                   physicsClientId=client)
             step(physicsClientId=client)
         self._last_rates = last
+
+    def _make_gearbox(self) -> Backlash:
+        """The motor sides and their dead-zone contacts, sized to the physics step."""
+        fig = self.spec.figures
+        lightest = min(cylinder_axle_inertia(wheel_of(self.spec, side))
+                       for side in ("left", "right"))
+        # the wheel relative to the body, both free (in the air): the largest mobility
+        mobility = 1.0 / lightest + 1.0 / float(fig.body.inertia[1, 1])
+        design = ContactDesign.for_step(self.backlash, fig.reflected_inertia, mobility, self.dt)
+        return Backlash(design, self.dt)
+
+    def play_angles(self) -> tuple[float, float] | None:
+        """Each gearbox's motor side less its wheel (rad, left and right), within ±half
+        the play while the gap is open; None without backlash."""
+        if self._gearbox is None:
+            return None
+        left, right, _, _ = self.wheel_state()
+        return self._gearbox.play_angles(left, right)
+
+    def motor_angles(self) -> tuple[float, float] | None:
+        """Motor-side angles at the output shaft relative to the body (rad, left and
+        right): what an encoder on the motor shaft counts (divided by the gear ratio);
+        None without backlash, where they are the wheels' angles."""
+        if self._gearbox is None:
+            return None
+        return self._gearbox.motor_angle[0], self._gearbox.motor_angle[1]
+
+    def _advance_geared(self, steps: int, drive) -> None:
+        """As :meth:`advance`, with backlash: the motors drive their motor sides (their
+        back-EMF sees the motor side's rate) and the wheels get the dead-zone contact's
+        torque. The joint torque's reaction on the body is the stator's torque plus the
+        rotor's inertial reaction (−τ_motor + J·ψ̈_motor = −τ_contact), so momentum is
+        conserved with no further torque."""
+        robot, joints, client = self.robot_id, self.wheel_joints, self.client
+        gear, dt = self._gearbox, self.dt
+        joints_now = self._joints_now
+        self._forget_reads()
+        for _ in range(steps):
+            if joints_now is None:
+                joints_now = pb.getJointStates(robot, joints, physicsClientId=client)
+            (angle_left, rate_left), (angle_right, rate_right) = (j[:2] for j in joints_now)
+            joints_now = None
+            motor_left, motor_right = gear.motor_rates()
+            torques = drive.step(motor_left, motor_right, dt)
+            contact = gear.step(torques, (angle_left, angle_right), (rate_left, rate_right))
+            pb.setJointMotorControlArray(robot, joints, pb.TORQUE_CONTROL, forces=contact,
+                                         physicsClientId=client)
+            pb.stepSimulation(physicsClientId=client)
 
     def _gravity_torque(self) -> float:
         """Gravity's torque on the body about the axle axis now (N·m, + leaning forward)."""
