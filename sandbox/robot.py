@@ -166,6 +166,8 @@ class Motors(Section):
     gear_ratio: GearRatio = Field(default=48.0, ge=1.0)
     rotor_inertia: Inertia = Field(default=1.0e-7, ge=0)  # at the motor shaft
     friction_torque: Torque = Field(default=0.005, ge=0)  # Coulomb, at the output shaft
+    # total free play at the output shaft (an angle); the motor side needs a rotor inertia
+    backlash: Annotated[float, _si("angle")] = Field(default=0.0, ge=0, le=math.pi / 6)
     # breakaway torque at the output shaft (Karnopp stick-slip); absent: equal to friction_torque
     static_friction_torque: Torque | None = Field(default=None, ge=0, exclude_if=_absent)
     left: MotorSide | None = Field(default=None, exclude_if=_absent)  # this side's own figures
@@ -179,6 +181,16 @@ class Motors(Section):
                 f"static_friction_torque {static:g} N·m is below friction_torque "
                 f"{self.friction_torque:g} N·m: the breakaway torque is at least the kinetic "
                 "one (raise static_friction_torque or lower friction_torque)")
+        return self
+
+    @model_validator(mode="after")
+    def _backlash_needs_rotor(self) -> Motors:
+        if self.backlash > 0 and self.rotor_inertia == 0:
+            raise ValueError(
+                "backlash needs a rotor inertia: the play is crossed by the motor side "
+                "(rotor and gears), which has no inertia when motors.rotor_inertia is 0; "
+                "give motors.rotor_inertia (at the motor shaft, kg*m^2, e.g. 1e-7) or set "
+                "motors.backlash to 0")
         return self
 
 

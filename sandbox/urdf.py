@@ -12,6 +12,7 @@ from xml.sax.saxutils import quoteattr
 
 import numpy as np
 
+from .inertia import cylinder_inertia_y
 from .robot import WHEEL_COLOUR, RobotSpec
 
 BODY_LINK = "body"
@@ -60,21 +61,30 @@ def _meet_triangle_inequality(inertia: np.ndarray) -> None:
         inertia[2, 2] += 0.5005 * shortfall
 
 
-def robot_urdf(spec: RobotSpec, with_reflected_inertia: bool = False) -> str:
+def wheel_of(spec: RobotSpec, side: str):
+    """The wheel section in force on one side ("left" or "right"): the per-side figures
+    where the description has them, else the shared ``wheels`` section."""
+    per_side = getattr(spec, "wheel_side", None)
+    return spec.wheels if per_side is None else per_side(side)
+
+
+def robot_urdf(spec: RobotSpec, with_reflected_inertia: bool = False,
+               reflected_on_wheels: bool = True) -> str:
     """The URDF text of a robot description.
 
     ``with_reflected_inertia`` (for simulation only) adds each motor's rotor
     inertia × gear ratio² to its wheel's axle inertia and to the body's pitch
     inertia: the diagonal terms of ½J(φ̇−θ̇)². The world applies the cross term.
+    ``reflected_on_wheels=False`` leaves them out even then (with backlash the world's
+    gearbox model carries the rotor). Each wheel has its own radius, width and mass
+    where the description gives per-side figures.
     """
     fig = spec.figures
     body_inertia = fig.body.inertia.copy()
-    wheel_inertia = fig.wheel_inertia.copy()
-    if with_reflected_inertia:
+    add_rotor = with_reflected_inertia and reflected_on_wheels
+    if add_rotor:
         body_inertia[1, 1] += 2 * fig.reflected_inertia
-        wheel_inertia[1, 1] += fig.reflected_inertia
         # A rigid body needs Ixx + Izz >= Iyy; the engine zeroes an inertia that breaks it.
-        _meet_triangle_inequality(wheel_inertia)
         _meet_triangle_inequality(body_inertia)
     lines = [
         '<?xml version="1.0"?>',
@@ -99,22 +109,27 @@ def robot_urdf(spec: RobotSpec, with_reflected_inertia: bool = False) -> str:
         ]
     lines.append("  </link>")
 
-    w = spec.wheels
-    cylinder = (f'<geometry><cylinder radius="{_num(w.radius)}" length="{_num(w.width)}"/>'
-                "</geometry>")
+    track = spec.wheels.track
     # URDF cylinders lie along z; turn them about x so the axle is along y.
     turned = '<origin xyz="0 0 0" rpy="1.5707963267948966 0 0"/>'
     for side, sign, joint in (("left", 1.0, WHEEL_JOINTS[0]), ("right", -1.0, WHEEL_JOINTS[1])):
+        w = wheel_of(spec, side)
+        wheel_inertia = cylinder_inertia_y(w.mass, w.radius, w.width)
+        if add_rotor:
+            wheel_inertia[1, 1] += fig.reflected_inertia
+            _meet_triangle_inequality(wheel_inertia)
+        cylinder = (f'<geometry><cylinder radius="{_num(w.radius)}" length="{_num(w.width)}"/>'
+                    "</geometry>")
         link = f"wheel_{side}"
         lines.append(f'  <link name="{link}">')
-        lines += _inertial(fig.wheel_mass, (0.0, 0.0, 0.0), wheel_inertia)
+        lines += _inertial(w.mass, (0.0, 0.0, 0.0), wheel_inertia)
         lines += [
             f'    <visual>{turned}{cylinder}<material name="wheel"/></visual>',
             f"    <collision>{turned}{cylinder}</collision>",
             "  </link>",
             f'  <joint name="{joint}" type="continuous">',
             f'    <parent link="{BODY_LINK}"/><child link="{link}"/>',
-            f'    <origin xyz="0 {_num(sign * w.track / 2)} 0" rpy="0 0 0"/>',
+            f'    <origin xyz="0 {_num(sign * track / 2)} 0" rpy="0 0 0"/>',
             '    <axis xyz="0 1 0"/>',
             "  </joint>",
         ]

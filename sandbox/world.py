@@ -16,8 +16,11 @@ from typing import NamedTuple
 
 import numpy as np
 
+from .analysis import PlanarParams
+from .gearbox import Backlash, ContactDesign, CouplingGains
+from .inertia import cylinder_inertia_y
 from .robot import RobotSpec
-from .urdf import WHEEL_JOINTS, robot_urdf
+from .urdf import WHEEL_JOINTS, robot_urdf, wheel_of
 
 
 @contextmanager
@@ -242,6 +245,11 @@ def _point_velocity(state: BodyState, velocity: Vector, omega: Vector, point: Ve
             velocity[2] + ox * dy - oy * dx)
 
 
+def cylinder_axle_inertia(wheel) -> float:
+    """A wheel's inertia about its axle (kg·m², solid cylinder, m r²/2)."""
+    return float(cylinder_inertia_y(wheel.mass, wheel.radius, wheel.width)[1, 1])
+
+
 def _cross(a: Vector, b: Vector) -> Vector:
     return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
 
@@ -281,11 +289,20 @@ class World:
     ):
         self.spec = spec
         self.dt = float(physics_dt)
+        # per-side wheels: the axle centre sits at the mean radius, rolled so both touch
+        left, right = wheel_of(spec, "left").radius, wheel_of(spec, "right").radius
+        self.wheel_radii = (left, right)
+        self._axle_height = 0.5 * (left + right)
+        self._roll = math.asin((left - right) / spec.wheels.track) if left != right else 0.0
         self.gravity = float(gravity)
         self.ground = ground or Ground(friction=spec.wheels.friction,
                                        rolling_resistance=spec.wheels.rolling_resistance)
         slope = self.ground.slope
         self._floor_normal = (-math.sin(slope), 0.0, math.cos(slope))
+        # With backlash the rotor is the gearbox's motor side (sandbox.gearbox), joined to
+        # the wheel through the play: the wheels in the engine carry no rotor inertia.
+        self.backlash = float(getattr(spec.motors, "backlash", 0.0))
+        self._gearbox: Backlash | None = None
         with quiet():
             self.client = pb.connect(pb.DIRECT)
         c = self.client
@@ -312,8 +329,14 @@ class World:
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
         # the cross term couples wheel and body and is applied here every step.
         self.reflected_inertia = spec.figures.reflected_inertia if rotor_coupling else 0.0
+        if self.backlash > 0.0:
+            self._gearbox = self._make_gearbox()
+            self.reflected_inertia = 0.0  # no cross term: the rotor is not on the wheels
+        self._coupling = (CouplingGains.from_params(PlanarParams.from_spec(spec))
+                          if self.reflected_inertia > 0.0 else None)
         self._axle_axis = (0.0, 1.0, 0.0)
-        self._last_rates: tuple[float, float, float] | None = None
+        # (pitch rate, wheel rates (absolute), total motor torque) at the last step's start
+        self._last_rates: tuple[float, float, float, float] | None = None
         # the body's (velocity, angular velocity) read at the start of the last step
         # by the rotor coupling, or None: lets the IMU model skip a read
         self.velocity_before_step: tuple | None = None
@@ -324,7 +347,10 @@ class World:
         self._clear_tilt = self._tilt_before_touching()
         # what advance() binds to local names on every call (once per controller tick)
         self._hot_names = (self.robot_id, self.wheel_joints, self.client, self.dt, 1.0 / self.dt,
-                           self.reflected_inertia, pb.getJointStates, pb.getBaseVelocity,
+                           self.reflected_inertia,
+                           (0.0, 0.0) if self._coupling is None else
+                           (self._coupling.pitch, self._coupling.wheels),
+                           pb.getJointStates, pb.getBaseVelocity,
                            pb.applyExternalTorque, pb.setJointMotorControlArray,
                            pb.stepSimulation, pb.TORQUE_CONTROL, pb.WORLD_FRAME)
         self._push: list | None = None  # [steps left, force (world), point (body frame)]
@@ -347,7 +373,7 @@ class World:
             normal = np.array(self._floor_normal)
             sink = float(np.dot(state.axle, normal))
             target_axle = normal * sink
-            link_quat = pb.getQuaternionFromEuler([0, tilt, 0])
+            link_quat = pb.getQuaternionFromEuler([self._roll, tilt, 0])
             rotation = np.array(pb.getMatrixFromQuaternion(link_quat)).reshape(3, 3)
             com = target_axle + rotation @ self._com_local
             quat = pb.multiplyTransforms([0, 0, 0], link_quat, [0, 0, 0],
@@ -407,7 +433,7 @@ class World:
         # Bullet combines rolling friction as floor.rolling × wheel.friction (1 here):
         # the rolling resistance coefficient times the wheel radius is a torque per newton.
         pb.changeDynamics(body, -1, lateralFriction=friction,
-                          rollingFriction=g.rolling_resistance * self.spec.wheels.radius,
+                          rollingFriction=g.rolling_resistance * self._axle_height,
                           spinningFriction=g.spinning_friction, physicsClientId=self.client)
 
     def _make_heightfield(self, rough: Rough) -> int:
@@ -431,13 +457,14 @@ class World:
 
     def _spawn(self, tilt: float) -> int:
         c = self.client
-        text = robot_urdf(self.spec, with_reflected_inertia=True)
+        text = robot_urdf(self.spec, with_reflected_inertia=True,
+                          reflected_on_wheels=self.backlash == 0.0)
         with tempfile.NamedTemporaryFile("w", suffix=".urdf", delete=False) as handle:
             handle.write(text)
             path = handle.name
         try:
-            axle = np.array(self._floor_normal) * self.spec.wheels.radius
-            orientation = pb.getQuaternionFromEuler([0, tilt, 0])
+            axle = np.array(self._floor_normal) * self._axle_height
+            orientation = pb.getQuaternionFromEuler([self._roll, tilt, 0])
             with quiet():
                 robot = pb.loadURDF(path, axle.tolist(), orientation, flags=LOAD_FLAGS,
                                     physicsClientId=c)
@@ -499,13 +526,16 @@ class World:
         first step uses the reads of the present instant if the controller
         tick already made them.
         """
-        (robot, joints, client, dt, inv_dt, j, read, read_body, push_body, apply, step,
-         torque_mode, world_frame) = self._hot_names
+        (robot, joints, client, dt, inv_dt, j, (pitch_gain, wheels_gain), read, read_body,
+         push_body, apply, step, torque_mode, world_frame) = self._hot_names
         motors = drive.step
         ax, ay, az = self._axle_axis
         last = self._last_rates
         if self._push is not None:
             self._advance_pushed(steps, drive)
+            return
+        if self._gearbox is not None:
+            self._advance_geared(steps, drive)
             return
         joints_now, velocity_now = self._joints_now, self._velocity_now
         self._joints_now = self._velocity_now = None
@@ -521,8 +551,10 @@ class World:
                 # Rotor coupling. The kinetic energy ½J(φ̇−θ̇)² has a cross term −Jφ̇θ̇
                 # that link inertias cannot hold: it gives +Jθ̈ on each wheel (as a joint
                 # torque) and +Jφ̈ on the body (the joint's reaction is undone by an
-                # external torque). The accelerations are the previous step's, from
-                # velocity differences.
+                # external torque). The accelerations of this step are predicted: the
+                # previous step's (from velocity differences) plus what the change of
+                # motor torque adds through the planar mass matrix; on the first step
+                # after a release, the planar model's accelerations from rest.
                 if velocity_now is None:
                     velocity = read_body(robot, physicsClientId=client)
                 else:
@@ -530,21 +562,86 @@ class World:
                     velocity_now = None
                 w = velocity[1]
                 body_rate = w[0] * ax + w[1] * ay + w[2] * az
-                now = (body_rate, rate_left + body_rate, rate_right + body_rate)
+                torque = torque_left + torque_right
+                now = (body_rate, rate_left + body_rate, rate_right + body_rate, torque)
                 if last is not None:
-                    body_acc = (body_rate - last[0]) * inv_dt
-                    body_torque = j * ((now[1] - last[1]) * inv_dt + (now[2] - last[2]) * inv_dt
-                                       + 2.0 * body_acc)
-                    push_body(robot, -1, (ax * body_torque, ay * body_torque, az * body_torque),
-                              world_frame, physicsClientId=client)
-                    torque_left += j * body_acc
-                    torque_right += j * body_acc
+                    change = torque - last[3]
+                    body_acc = (body_rate - last[0]) * inv_dt + pitch_gain * change
+                    wheels_acc = ((now[1] - last[1]) * inv_dt + (now[2] - last[2]) * inv_dt
+                                  + wheels_gain * change)
+                else:
+                    body_acc, wheels_acc = self._coupling.accelerations(
+                        torque, self._gravity_torque())
+                body_torque = j * (wheels_acc + 2.0 * body_acc)
+                push_body(robot, -1, (ax * body_torque, ay * body_torque, az * body_torque),
+                          world_frame, physicsClientId=client)
+                torque_left += j * body_acc
+                torque_right += j * body_acc
                 last = now
                 self.velocity_before_step = velocity
             apply(robot, joints, torque_mode, forces=(torque_left, torque_right),
                   physicsClientId=client)
             step(physicsClientId=client)
         self._last_rates = last
+
+    def _make_gearbox(self) -> Backlash:
+        """The motor sides and their dead-zone contacts, sized to the physics step."""
+        fig = self.spec.figures
+        lightest = min(cylinder_axle_inertia(wheel_of(self.spec, side))
+                       for side in ("left", "right"))
+        # the wheel relative to the body, both free (in the air): the largest mobility
+        mobility = 1.0 / lightest + 1.0 / float(fig.body.inertia[1, 1])
+        design = ContactDesign.for_step(self.backlash, fig.reflected_inertia, mobility, self.dt)
+        return Backlash(design, self.dt)
+
+    def play_angles(self) -> tuple[float, float] | None:
+        """Each gearbox's motor side less its wheel (rad, left and right), within ±half
+        the play while the gap is open; None without backlash."""
+        if self._gearbox is None:
+            return None
+        left, right, _, _ = self.wheel_state()
+        return self._gearbox.play_angles(left, right)
+
+    def motor_angles(self) -> tuple[float, float] | None:
+        """Motor-side angles at the output shaft relative to the body (rad, left and
+        right): what an encoder on the motor shaft counts (divided by the gear ratio);
+        None without backlash, where they are the wheels' angles."""
+        if self._gearbox is None:
+            return None
+        return self._gearbox.motor_angle[0], self._gearbox.motor_angle[1]
+
+    def _advance_geared(self, steps: int, drive) -> None:
+        """As :meth:`advance`, with backlash: the motors drive their motor sides (their
+        back-EMF sees the motor side's rate) and the wheels get the dead-zone contact's
+        torque. The joint torque's reaction on the body is the stator's torque plus the
+        rotor's inertial reaction (−τ_motor + J·ψ̈_motor = −τ_contact), so momentum is
+        conserved with no further torque."""
+        robot, joints, client = self.robot_id, self.wheel_joints, self.client
+        gear, dt = self._gearbox, self.dt
+        joints_now = self._joints_now
+        self._forget_reads()
+        for _ in range(steps):
+            if joints_now is None:
+                joints_now = pb.getJointStates(robot, joints, physicsClientId=client)
+            (angle_left, rate_left), (angle_right, rate_right) = (j[:2] for j in joints_now)
+            joints_now = None
+            motor_left, motor_right = gear.motor_rates()
+            torques = drive.step(motor_left, motor_right, dt)
+            contact = gear.step(torques, (angle_left, angle_right), (rate_left, rate_right))
+            pb.setJointMotorControlArray(robot, joints, pb.TORQUE_CONTROL, forces=contact,
+                                         physicsClientId=client)
+            pb.stepSimulation(physicsClientId=client)
+
+    def _gravity_torque(self) -> float:
+        """Gravity's torque on the body about the axle axis now (N·m, + leaning forward)."""
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=self.client)
+        r = pb.getMatrixFromQuaternion(quat, physicsClientId=self.client)
+        if not self._identity_inertial:
+            r = _matmul(r, self._body_from_inertial)
+        lx, ly, lz = self._com_local_tuple
+        cx, cy = r[0] * lx + r[1] * ly + r[2] * lz, r[3] * lx + r[4] * ly + r[5] * lz
+        ax, ay, _ = r[1], r[4], r[7]
+        return self.spec.figures.body.mass * self.gravity * (cx * ay - cy * ax)
 
     def _advance_pushed(self, steps: int, drive) -> None:
         """Step one at a time while a push lasts (the force is re-applied every step)."""
@@ -699,7 +796,7 @@ class World:
 
     def _tilt_before_touching(self) -> float:
         """Smallest tilt (rad) at which a corner of a body box reaches flat floor."""
-        radius = self.spec.wheels.radius
+        radius = min(self.wheel_radii)
         corners = [(b.at[0] + sx * b.size[0] / 2, b.at[2] + sz * b.size[2] / 2)
                    for b in self.spec.figures.boxes for sx in (-1, 1) for sz in (-1, 1)]
         for degrees in range(0, 91):
@@ -795,3 +892,4 @@ class World:
         pb.resetBasePositionAndOrientation(self.robot_id, com, orientation, physicsClientId=c)
         pb.resetBaseVelocity(self.robot_id, velocity, angular_velocity, physicsClientId=c)
         self._forget_reads()
+        self._last_rates = None  # velocities jumped: no acceleration to carry over
