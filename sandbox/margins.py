@@ -92,12 +92,18 @@ def robot_value(spec: RobotSpec, settings: RunSettings, name: str) -> float | No
 
 
 def supported(robot: dict[str, Any], name: str) -> bool:
-    """Whether the robot description has the keys a stress needs."""
-    node: Any = robot
+    """Whether the robot file's schema has the keys a stress needs (absent optional keys
+    are left out of ``robot``, so the schema is asked, not the description)."""
+    from .robot import RobotSpec
+
+    model: Any = RobotSpec
     for key in _NEEDS.get(name, ()):
-        if not isinstance(node, dict) or key not in node:
+        fields = getattr(model, "model_fields", None)
+        if fields is None or key not in fields:
             return False
-        node = node[key]
+        annotation = fields[key].annotation
+        model = next((a for a in getattr(annotation, "__args__", (annotation,))
+                      if hasattr(a, "model_fields")), None)
     return True
 
 
