@@ -51,6 +51,7 @@ class Controller:
     rate_hz = 200
 
     def __init__(self, config, robot):
+        self.kp = config.get("kp")  # read: the sweep checks its keys are
         with open(config["count_file"], "a") as stream:
             stream.write("run\\n")
 
@@ -266,7 +267,8 @@ def test_two_point_grid_matches_separate_runs(tmp_path, shelf_runner, short_push
 
 def test_resume_skips_finished_points(tmp_path, shelf_runner):
     """A rerun into the same folder runs only the points missing from points.jsonl
-    (counted by a controller that appends a line per run); results.csv is unchanged."""
+    (counted by a controller that appends a line per run, plus one for the short probe
+    run each sweep makes of its config keys first); results.csv is unchanged."""
     script = tmp_path / "counting.py"
     script.write_text(COUNTING_CONTROLLER, encoding="utf-8")
     count_file = tmp_path / "count.txt"
@@ -278,7 +280,7 @@ def test_resume_skips_finished_points(tmp_path, shelf_runner):
                   workers=1, out=folder, progress=lambda done, total: calls.append(done))
     first = sweep_command(shelf_runner, settings, **kwargs)
     runs = lambda: len(count_file.read_text().splitlines())  # noqa: E731
-    assert runs() == 4 and first.ran == 4 and first.skipped == 0
+    assert runs() == 1 + 4 and first.ran == 4 and first.skipped == 0
     assert calls == [0, 1, 2, 3, 4], "progress before the first run and after each"
     assert (folder / "heatmap.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n", "2-D heatmap"
     table = (folder / "results.csv").read_text()
@@ -286,11 +288,11 @@ def test_resume_skips_finished_points(tmp_path, shelf_runner):
     # a crash after two points, in the middle of writing the third
     (folder / POINTS).write_text("\n".join(lines[:2]) + "\n" + lines[2][:25], encoding="utf-8")
     second = sweep_command(shelf_runner, settings, **kwargs)
-    assert runs() == 6, "only the two missing points ran again"
+    assert runs() == 5 + 1 + 2, "only the two missing points ran again"
     assert (second.ran, second.skipped, second.finished) == (2, 2, 4)
     assert (folder / "results.csv").read_text() == table, "same table after resuming"
     third = sweep_command(shelf_runner, settings, **kwargs)
-    assert runs() == 6 and third.ran == 0 and third.skipped == 4, "nothing left to run"
+    assert runs() == 8 + 1 and third.ran == 0 and third.skipped == 4, "nothing left to run"
     with pytest.raises(SweepError, match="different sweep"):
         sweep_command(shelf_runner, settings, **{**kwargs, "vary": ["config.kp=1,3"]})
 

@@ -318,6 +318,27 @@ def controller_label(controller: str) -> str:
     return Path(path).stem + (f"-{class_name}" if class_name else "")
 
 
+def check_config_keys(spec: RobotSpec, settings: RunSettings, keys: dict[str, float],
+                      option: str) -> None:
+    """Refuse config keys the controller never reads, found with one short probe run
+    (0.05 s, no folder) before any work starts. ``keys``: config keys (without the
+    ``config.`` prefix) that the sweep or tuning varies, with a value each takes, besides
+    ``settings.config``."""
+    from ..session import run_once
+
+    config = {**settings.config}
+    for key, value in keys.items():
+        config.setdefault(key, value)
+    if not config:
+        return
+    probe = run_once(spec, replace(settings, config=config, duration=0.05), write=False)
+    unread = probe.summary.get("unread_config_keys") or []
+    if unread:
+        raise SweepError("; ".join(item["text"] for item in unread)
+                         + f": nothing would change between the {option} points; fix the key "
+                         "name (see the script's config.get calls)")
+
+
 def sweep_command(spec: RobotSpec, settings: RunSettings, *, vary: Sequence[str] = (),
                   spread: Sequence[str] = (), samples: int = 0, test: str | None = None,
                   duration_given: bool = False, workers: int | None = None,
@@ -333,6 +354,8 @@ def sweep_command(spec: RobotSpec, settings: RunSettings, *, vary: Sequence[str]
 
     axes = [parse_vary(v) for v in vary]
     spreads = [parse_spread(s) for s in spread]
+    check_config_keys(spec, settings, {a.key.removeprefix("config."): a.values[0]
+                                       for a in axes if a.key.startswith("config.")}, "sweep")
     folder = out or default_run_dir(runs_root, f"sweep-{spec.name}",
                                     controller_label(settings.controller), test or "none")
     return run_sweep(spec, settings, folder, axes=axes, spreads=spreads, samples=samples,

@@ -448,6 +448,11 @@ def tune_command(spec: RobotSpec, settings: RunSettings, *, gains: Sequence[str]
         if not sep or not key.strip():
             raise SweepError(f"--start {item!r}: expected KEY=NUMBER (or a value with a unit, "
                              "SI base units), e.g. config.kp=8")
+    from .grid import check_config_keys
+
+    check_config_keys(spec, settings, {
+        g.removeprefix("config."): start_values.get(g, 1.0) for g in gains
+        if g.startswith("config.")}, "tune")
     folder = out or default_run_dir(runs_root, f"tune-{spec.name}",
                                     controller_label(settings.controller), "+".join(tests))
     return tune(spec, settings.controller, gains=gains, tests=tests, start=start_values,
