@@ -399,6 +399,12 @@ def run(
     out: Annotated[Path | None, typer.Option(
         "--out", help="Run folder (default runs/<robot>-<controller>-<test>-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Also render video.mp4.")] = False,
+    isolate: Annotated[bool, typer.Option(
+        "--isolate", help="Run the controller in a process of its own: it sees only the "
+        "readings, returns only the duties, and is stopped after --step-timeout.")] = False,
+    step_timeout: Annotated[float, typer.Option(
+        "--step-timeout", help="With --isolate: wall-clock seconds a controller call may "
+        "take (0.001 to 60).")] = 1.0,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
     camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
@@ -408,8 +414,11 @@ def run(
     _check_camera(camera)
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
+    if not (math.isfinite(step_timeout) and 0.001 <= step_timeout <= 60.0):
+        raise BadInput(f"--step-timeout must be from 0.001 to 60 s, got {step_timeout:g}")
     settings = replace(settings, physics_dt=physics_step / 1000.0, latency=latency / 1000.0,
-                       fall_limit=math.radians(fall_limit))
+                       fall_limit=math.radians(fall_limit), isolate=isolate,
+                       step_timeout=step_timeout)
     if settings.duration <= 0:
         raise BadInput(f"--duration must be positive, got {settings.duration:g}")
     folder = out
