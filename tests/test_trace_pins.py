@@ -57,22 +57,22 @@ CASES = {
 }
 
 PINS = {
-    "desk-mite": "dfd44cf2ada0b44a45801f0d66e48378455dbf4ea4ad49516514282fbee44a7d",
-    "desk-mite-latency": "f0cec1c926329ce31e6e844be2701835937e4939a37330887ca9b6c398dbd816",
+    "desk-mite": "061bcee824a0b0967f73d68a44a584f0f7cd1c30e1ea85818be4985feabeac66",
+    "desk-mite-latency": "c7a7f5d0c29fbcf3c2c94cc2be43c2dfa3135111f52993ee6a94b647b1a3df6e",
     "desk-mite-no-rotor": "7ff14a6c8a114c8ef81ee610579f0a726b037df1f434c17d5346cd19edec8b83",
-    "desk-mite-push-latency": "e5fe1c6e173a1b8342e27cef6e2bf1823dc71acddf0409ba6c305a3e0c67cf57",
-    "desk-mite-sensor-fault": "ee0b6dfdd87088d9d2d2e97129685e5321de3bf3f8dcf7ce5ca6a923d5b0095b",
-    "desk-mite-slow-imu": "d584c227e50d3c71abad532026330370f2c5b2ae7690f310ce5bf618c88189b1",
-    "shelf-runner": "76b2ec7729be49135b41850b3660e3cf9f751f2f14771c7a0759cb16762987e1",
-    "shelf-runner-imu-latency": "30d58a10fcb93e3007ce643785e0db0439e48406c68d108802e1c362dddab57b",
-    "shelf-runner-latency": "c0c90f05b798298cf3274b53db2977f8e7d59c725c167822e1c305940cad6233",
+    "desk-mite-push-latency": "5ca74f831b9e7a4e5d448caa0c4a940a102593afdcb7206d012b9a7820375fb8",
+    "desk-mite-sensor-fault": "97a6fc911fdb3fbb0936ebc2ac2c2701ab65759fdd25b0c54b8df1b81a14a0fe",
+    "desk-mite-slow-imu": "a3fcdc5c9416559b1e27e9fca39174a7cea3b7c29a3fe28eac824eb0be9a6260",
+    "shelf-runner": "262d617f96b675d8ea171e70d3d93bf2db47b5cb6ea6b36e6e66e8c362d11b69",
+    "shelf-runner-imu-latency": "d4f4e6fb1818574f0c5f52c50e190e66d002d783c3c50e64b369203b7f29c07c",
+    "shelf-runner-latency": "acc0c225d4bb10f09294aa0add34b16cb83d768b5776163507d8a0158f1c4604",
     "shelf-runner-no-rotor-push": "763797f7c4c18d6da25bc5d52c9e6a1591684fbc5eb0797975dbba582bd0c8be",  # noqa: E501
-    "shelf-runner-payload": "5addb48952a262f56c44bc7f0778b0d2907dc0fad2f8dfffac7fcfbad14295f2",
-    "shelf-runner-push": "602fe878d24f0edc9048761a563aafd3e0543c7617d298512b79da4ebeebeeae",
-    "tall-mast": "ff4627010f644d87c0b384ab860431a5aa3cd3031a3d88aa2dd499cbfa3240c7",
-    "tall-mast-bumps": "d478b11608f552835ace330af0c64acd2d36d091a19719ee15a618d5e9cf669e",
-    "tall-mast-drive": "3dfbc3486d60bd6ccc76cd9c38e45b5bdc0668a6141b973b599d4243d2951f9a",
-    "tall-mast-latency": "6bab280622a94f34c959f6debd1c5ffa9c0cfdc3cc8b10df34e90a7e8cae25a3",
+    "shelf-runner-payload": "4e14e870db310ee8d0c132db781d32d2acc764e8b21bdbd600385181be2bc0bd",
+    "shelf-runner-push": "1b843bbaf79d1d856bfc582d515c86f3138d56e06fb66f6f861ca8cde6a8b155",
+    "tall-mast": "7d7ad038b094a52cd06397bac2377a78b3639d525cd653daa89ded48298994f4",
+    "tall-mast-bumps": "e3eecf1ae67e5328b1f819505b14dd03affdcfadc773fa7d1c3c6395e5144b36",
+    "tall-mast-drive": "1950bc7b6b42ad5d89d8a5ea62ea78b582a47dfdd2b322af2236ba9fd314d2f3",
+    "tall-mast-latency": "dfd95caad86865add72fae444a6c24c4d6cdc9ef2744b836c9cc4861e63e83b9",
     "tall-mast-no-rotor-latency": "9c4f4cfbe48f873861eb019c2bd136c6209a6b33421a48eeae1c407cd6277a8a",  # noqa: E501
 }
 
