@@ -9,12 +9,16 @@ import numpy as np
 import pytest
 import scipy.integrate
 
+from sandbox.actuators import DriveTrain
 from sandbox.analysis import PlanarParams, duty_input_model, torque_input_model
 from sandbox.gearbox import Backlash, ContactDesign, CouplingGains, contact_torque
 from sandbox.identify import Excitation, identification_spec, record_run
-from sandbox.robot import load_robot
+from sandbox.robot import RobotFileError, load_robot
+from sandbox.runner import RunSettings, run
+from sandbox.world import World
 
 ROBOTS = Path(__file__).resolve().parents[1] / "robots"
+CONTROLLERS = Path(__file__).resolve().parents[1] / "controllers"
 ROBOT_NAMES = sorted(p.stem for p in ROBOTS.glob("*.yaml"))
 
 
@@ -150,3 +154,69 @@ def test_contact_design_is_sized_to_the_step():
     assert design.substeps == 4
     with pytest.raises(ValueError, match="motor inertia"):
         ContactDesign.for_step(PLAY, 0.0, 5e5, 1e-3)
+
+
+# ------------------------------------------------------------------ backlash in the world
+
+
+def test_backlash_key_reads_an_angle_and_needs_a_rotor_inertia():
+    """``motors.backlash`` is an angle (default 0); with no rotor inertia it is an error
+    that says what to set."""
+    assert robot("desk-mite").motors.backlash == 0.0
+    spec = robot("desk-mite", {"motors.backlash": "1.5 deg"})
+    assert spec.motors.backlash == pytest.approx(math.radians(1.5), rel=1e-12)
+    with pytest.raises(RobotFileError, match="backlash needs a rotor inertia"):
+        robot("desk-mite", {"motors.backlash": "1.5 deg", "motors.rotor_inertia": 0.0})
+
+
+def test_no_torque_crosses_the_open_gap_in_the_world():
+    """Floating with no gravity, a duty step on both motors: while the motor sides turn
+    through the first half of the play (they start in the middle), the wheels and the
+    body stay exactly at rest — the stator's torque and the rotor's reaction cancel on
+    the body (Newton's third law; dead-zone model of SOURCES §11 [published]) — and once
+    the play is taken up the wheels turn forward."""
+    spec = robot("shelf-runner", {"motors.backlash": "1.5 deg"})
+    with World(spec, tilt=0.0, gravity=0.0) as world:
+        state = world.body_state()
+        world.set_state((state.com[0], state.com[1], state.com[2] + 0.3), state.com_orientation)
+        drive = DriveTrain(spec)
+        drive.set_duty(0.3, 0.3)
+        half = 0.5 * spec.motors.backlash
+        open_steps, before = 0, 0.0
+        for _ in range(40):
+            world.advance(1, drive)
+            travel = min(world.motor_angles())  # from the middle of the play
+            _, _, rate_left, rate_right = world.wheel_state()
+            if rate_left != 0.0 or rate_right != 0.0:
+                break  # torque reached the wheels in this step
+            open_steps += 1
+            assert world.body_state().angular_velocity == (0.0, 0.0, 0.0), "body moved"
+            before = travel
+        assert before < half <= travel, "the wheels start to move as the half play is crossed"
+        for _ in range(10):
+            world.advance(1, drive)
+        _, _, rate_left, rate_right = world.wheel_state()
+        assert open_steps >= 3, "the gap stayed open for a few steps"
+        assert rate_left > 0.0 and rate_right > 0.0, "the wheels turn once the play is taken up"
+
+
+def test_without_backlash_the_world_has_no_play():
+    """No backlash: no gearbox, no play angles (the trace gets no column)."""
+    with World(robot("desk-mite")) as world:
+        assert world.play_angles() is None and world.motor_angles() is None
+
+
+@pytest.mark.parametrize("name", [
+    "desk-mite",
+    pytest.param("shelf-runner", marks=pytest.mark.slow),
+    pytest.param("tall-mast", marks=pytest.mark.slow),
+])
+def test_cascade_still_balances_with_one_and_a_half_degrees_of_play(name):
+    """End to end: 1.5° of gearbox play (typical of small plastic gearboxes, SOURCES §11
+    [common practice]) and the example cascade controller with its default gains keeps
+    the robot up for 4 s from a 3° start."""
+    spec = robot(name, {"motors.backlash": "1.5 deg"})
+    outcome = run(spec, RunSettings(controller=str(CONTROLLERS / "cascade.py"), duration=4.0,
+                                    tilt=math.radians(3.0), seed=7))
+    assert outcome.status == "completed", f"{name}: {outcome.summary}"
+    assert outcome.summary["max_abs_pitch_deg"] < 5.0, "tilt stays near upright (deg)"
