@@ -11,15 +11,27 @@ solver, 1 ms step) for the same simulated time, in this process:
     (A bare loop with its own control law moves differently: a stiffer, still
     robot has half the wheel contact points and a cheaper contact solve,
     which measured here made the ratio 0.2 worse for no reason of upright's.)
+(c) independent: a bare loop of its own, sharing nothing with upright's runner:
+    the same generated URDF (sandbox.urdf), load flags, solver and 1 ms step,
+    on a plane; every step it reads the wheel joints and the body, applies the
+    torque of its own averaged DC-motor law (τ = kt/R (u·V − ke·ω) per wheel),
+    steps; at 200 Hz its own LQR state feedback (scipy's continuous Riccati
+    solution on the duty model of sandbox.analysis, Bryson weights) sets u.
+    This is the honest baseline of issue 13; the replay (a) stays beside it.
 (b) upright: the real runner with a 200 Hz example controller, IMU, motors,
     battery, and the trace written to a folder.
 
-Prints both costs per physics step, the ratio (b)/(a) (target: at most 1.3),
+Contact points per step (pybullet's getContactPoints of the robot, averaged
+over a run counted apart from the timed ones) are printed for (b) and (c).
+
+Prints the costs per physics step, the ratios (b)/(c) and (b)/(a) (targets: at
+most 1.3 and 1.15), on each demo robot (robots/*.yaml),
 upright's real-time factor, and the CPU time of the trace-writing process,
 which formats the CSV on another core (see DEVELOPERS.md). The headline is
 the median over rounds of the per-round ratio: on a shared machine whose
 speed swings, that is steadier than a ratio of two minimums.
-Usage: python bench/loop_speed.py [SECONDS [ROUNDS]]  (default 2 s, 21 rounds)
+Usage: python bench/loop_speed.py [SECONDS [ROUNDS [ROBOT.yaml ...]]]
+(default 2 s, 11 rounds, every robot in robots/)
 """
 
 from __future__ import annotations
@@ -34,19 +46,27 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
+import numpy as np  # noqa: E402
+import scipy.linalg  # noqa: E402
+
+from sandbox.analysis import PlanarParams, default_weights, duty_input_model  # noqa: E402
 from sandbox.record import writing_process  # noqa: E402
 from sandbox.robot import load_robot  # noqa: E402
 from sandbox.runner import RunSettings, run  # noqa: E402
-from sandbox.world import World, pb  # noqa: E402
+from sandbox.urdf import WHEEL_JOINTS, robot_urdf  # noqa: E402
+from sandbox.world import LOAD_FLAGS, World, pb, quiet  # noqa: E402
 
-ROBOT = ROOT / "robots" / "shelf-runner.yaml"
+ROBOTS = sorted((ROOT / "robots").glob("*.yaml"))
+CONTROL_PERIOD = 5  # physics steps per control tick of the independent loop (200 Hz)
 CONTROLLER = ROOT / "controllers" / "cascade.py"
 
 
-def record_actuation(spec, seconds: float, folder: Path) -> list[tuple]:
-    """The (wheel torques, body torque or None) upright applied at each physics step."""
+def record_actuation(spec, seconds: float, folder: Path) -> tuple[list[tuple], float]:
+    """The (wheel torques, body torque or None) upright applied at each physics step,
+    and the robot's contact points per step of that run."""
     steps: list[tuple] = []
-    pending = {"forces": None, "body": None, "recording": False}
+    pending = {"forces": None, "body": None, "recording": False, "world": None}
+    contacts = [0]
     original = (pb.setJointMotorControlArray, pb.applyExternalTorque, pb.stepSimulation,
                 World.advance)
 
@@ -62,10 +82,15 @@ def record_actuation(spec, seconds: float, folder: Path) -> list[tuple]:
         if pending["recording"]:
             steps.append((pending["forces"], pending["body"]))
         pending["body"] = None
-        return original[2](**kwargs)
+        done = original[2](**kwargs)
+        world = pending["world"]
+        if pending["recording"]:
+            contacts[0] += len(pb.getContactPoints(world.robot_id, physicsClientId=world.client))
+        return done
 
     def advance(self, count, drive):
         pending["recording"] = True  # from the first step of the run, not the settling
+        pending["world"] = self
         return original[3](self, count, drive)
 
     pb.setJointMotorControlArray, pb.applyExternalTorque, pb.stepSimulation = (
@@ -76,7 +101,92 @@ def record_actuation(spec, seconds: float, folder: Path) -> list[tuple]:
     finally:
         (pb.setJointMotorControlArray, pb.applyExternalTorque, pb.stepSimulation,
          World.advance) = original
-    return steps
+    return steps, contacts[0] / max(len(steps), 1)
+
+
+class Independent:
+    """The independent bare loop of one robot: its own world, gains and torque law."""
+
+    def __init__(self, spec, dt: float = 1e-3, tilt: float = math.radians(2.0)):
+        self.dt = dt
+        params = PlanarParams.from_spec(spec)
+        A, B = duty_input_model(params)
+        Q, R = default_weights()
+        P = scipy.linalg.solve_continuous_are(A, B, Q, R)
+        self.gains = tuple(np.linalg.solve(R, B.T @ P).ravel().tolist())  # u = -K s
+        fig = spec.figures
+        self.conductance = fig.torque_constant / fig.resistance  # N·m per V, one motor
+        self.emf, self.volts = fig.back_emf_constant, fig.drive_voltage
+        self.radius = spec.wheels.radius
+        c = self.client = pb.connect(pb.DIRECT)
+        pb.setGravity(0, 0, -9.80665, physicsClientId=c)
+        pb.setTimeStep(dt, physicsClientId=c)
+        with quiet():
+            pb.setPhysicsEngineParameter(constraintSolverType=pb.CONSTRAINT_SOLVER_LCP_DANTZIG,
+                                         physicsClientId=c)
+        plane = pb.createMultiBody(0, pb.createCollisionShape(pb.GEOM_PLANE, physicsClientId=c),
+                                   physicsClientId=c)
+        pb.changeDynamics(plane, -1, lateralFriction=spec.wheels.friction, physicsClientId=c)
+        with tempfile.NamedTemporaryFile("w", suffix=".urdf", delete=False) as handle:
+            handle.write(robot_urdf(spec, with_reflected_inertia=True))
+        with quiet():
+            self.robot = pb.loadURDF(handle.name, [0, 0, self.radius],
+                                     pb.getQuaternionFromEuler([0, tilt, 0]), flags=LOAD_FLAGS,
+                                     physicsClientId=c)
+        os.unlink(handle.name)
+        names = [pb.getJointInfo(self.robot, j, physicsClientId=c)[1].decode()
+                 for j in range(pb.getNumJoints(self.robot, physicsClientId=c))]
+        self.joints = [names.index(n) for n in WHEEL_JOINTS]
+        for link in range(-1, len(names)):
+            pb.changeDynamics(self.robot, link, linearDamping=0, angularDamping=0,
+                              physicsClientId=c)
+        for j in range(len(names)):
+            pb.setJointMotorControl2(self.robot, j, pb.VELOCITY_CONTROL, force=0,
+                                     physicsClientId=c)
+        # the base frame is the body's inertial frame: undo its turn to get the link's pitch
+        inertial = pb.getDynamicsInfo(self.robot, -1, physicsClientId=c)[4]
+        self.link_from_base = pb.invertTransform([0, 0, 0], inertial)[1]
+
+    def run(self, steps: int, count_contacts: bool = False) -> tuple[float, float, float]:
+        """(wall seconds per step, contact points per step (0 unless counted), final pitch)."""
+        robot, joints, c = self.robot, self.joints, self.client
+        k_x, k_v, k_p, k_w = self.gains
+        g, emf, volts, r = self.conductance, self.emf, self.volts, self.radius
+        duty, contacts, pitch = 0.0, 0, 0.0
+        start = time.perf_counter()
+        for i in range(steps):
+            (left, right) = pb.getJointStates(robot, joints, physicsClientId=c)
+            _, quat = pb.getBasePositionAndOrientation(robot, physicsClientId=c)
+            _, omega = pb.getBaseVelocity(robot, physicsClientId=c)
+            if i % CONTROL_PERIOD == 0:
+                link = pb.multiplyTransforms([0, 0, 0], quat, [0, 0, 0], self.link_from_base)[1]
+                pitch = pb.getEulerFromQuaternion(link)[1]
+                x = r * (0.5 * (left[0] + right[0]) + pitch)
+                v = r * (0.5 * (left[1] + right[1]) + omega[1])
+                duty = max(-1.0, min(1.0, -(k_x * x + k_v * v + k_p * pitch + k_w * omega[1])))
+            forces = (g * (duty * volts - emf * left[1]), g * (duty * volts - emf * right[1]))
+            pb.setJointMotorControlArray(robot, joints, pb.TORQUE_CONTROL, forces=forces,
+                                         physicsClientId=c)
+            pb.stepSimulation(physicsClientId=c)
+            if count_contacts:
+                contacts += len(pb.getContactPoints(robot, physicsClientId=c))
+        elapsed = time.perf_counter() - start
+        return elapsed / steps, contacts / steps, pitch
+
+    def close(self) -> None:
+        pb.disconnect(physicsClientId=self.client)
+
+
+def independent_loop(spec, steps: int, count_contacts: bool = False) -> tuple[float, float]:
+    """(wall seconds per step, contact points per step) of a fresh independent loop."""
+    loop = Independent(spec)
+    try:
+        cost, contacts, pitch = loop.run(steps, count_contacts)
+    finally:
+        loop.close()
+    if abs(pitch) > math.radians(30):
+        raise SystemExit(f"the independent loop's {spec.name} fell: its gains do not balance it")
+    return cost, contacts
 
 
 def bare_loop(spec, actuation: list[tuple], dt: float = 1e-3) -> float:
@@ -122,37 +232,58 @@ def writer_cpu_seconds() -> float:
         return math.nan
 
 
+def bench_robot(path: Path, seconds: float, rounds: int, tmp: Path) -> dict:
+    """Every figure of one robot: costs per step, ratios, contacts, real-time factor."""
+    spec = load_robot(path)
+    actuation, upright_contacts = record_actuation(spec, seconds, tmp / f"{spec.name}-recorded")
+    steps = len(actuation)
+    _, independent_contacts = independent_loop(spec, steps, count_contacts=True)
+    replay, independent, full, rtf = [], [], [], []
+    writer_cpu = 0.0
+    # Back to back in each round, so a machine that speeds up or slows down
+    # (shared cores, frequency scaling) moves all figures alike; many short
+    # rounds rather than a few long ones, for the same reason.
+    for i in range(rounds):
+        independent.append(independent_loop(spec, steps)[0])
+        replay.append(bare_loop(spec, actuation))
+        writer_before = writer_cpu_seconds()
+        cost, factor = upright_loop(spec, seconds, tmp / f"{spec.name}-run{i}")
+        writer_cpu += writer_cpu_seconds() - writer_before
+        full.append(cost)
+        rtf.append(factor)
+    return {"robot": spec.name, "replay": replay, "independent": independent, "full": full,
+            "rtf": max(rtf), "writer_us": writer_cpu / (steps * rounds) * 1e6,
+            "upright_contacts": upright_contacts, "independent_contacts": independent_contacts}
+
+
+def _median_ratio(top: list[float], bottom: list[float]) -> tuple[float, float, float]:
+    """Median and middle half of the per-round ratios top/bottom."""
+    ratios = sorted(t / b for t, b in zip(top, bottom))
+    n = len(ratios)
+    return ratios[n // 2], ratios[n // 4], ratios[(3 * n) // 4]
+
+
 def main() -> None:
     seconds = float(sys.argv[1]) if len(sys.argv) > 1 else 2.0
-    rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 21
-    spec = load_robot(ROBOT)
-    bare, full, rtf = [], [], []
-    writer_cpu = 0.0
+    rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 11
+    robots = [Path(a) for a in sys.argv[3:]] or ROBOTS
+    print(f"{rounds} rounds of {seconds:g} s simulated per robot, 1 ms physics step, "
+          "200 Hz controllers; median of per-round ratios (middle half)")
+    print(f"{'robot':<14}{'upright us':>11}{'indep us':>10}{'replay us':>10}"
+          f"{'up/indep':>18}{'up/replay':>18}{'contacts up/indep':>19}{'rtf':>7}")
     with tempfile.TemporaryDirectory() as tmp:
-        actuation = record_actuation(spec, seconds, Path(tmp) / "recorded")
-        # Back to back in each round, so a machine that speeds up or slows down
-        # (shared cores, frequency scaling) moves both figures alike; many short
-        # rounds rather than a few long ones, for the same reason.
-        for i in range(rounds):
-            bare.append(bare_loop(spec, actuation))
-            writer_before = writer_cpu_seconds()
-            cost, factor = upright_loop(spec, seconds, Path(tmp) / f"run{i}")
-            writer_cpu += writer_cpu_seconds() - writer_before
-            full.append(cost)
-            rtf.append(factor)
-    ratios = sorted(f / b for f, b in zip(full, bare))
-    median = ratios[len(ratios) // 2]
-    quarter, three_quarters = ratios[len(ratios) // 4], ratios[(3 * len(ratios)) // 4]
-    b, f = min(bare), min(full)
-    steps = len(actuation) * rounds
-    print(f"{rounds} rounds of {seconds:g} s simulated, 1 ms physics step, 200 Hz controller")
-    print(f"bare pybullet sense-and-actuate, best: {b * 1e6:.1f} us per step ({1 / b:,.0f}/s)")
-    print(f"upright full run, best:                {f * 1e6:.1f} us per step ({1 / f:,.0f}/s)")
-    print(f"ratio upright / bare: median of rounds {median:.2f} (middle half {quarter:.2f}-"
-          f"{three_quarters:.2f}), of the bests {f / b:.2f}  (target <= 1.3)")
-    print(f"upright real-time factor: {max(rtf):.1f}x")
-    print(f"trace-writing process: {writer_cpu / steps * 1e6:.1f} us of CPU per step, "
-          "on another core")
+        for path in robots:
+            r = bench_robot(path, seconds, rounds, Path(tmp))
+            mi, qi, ti = _median_ratio(r["full"], r["independent"])
+            mr, qr, tr = _median_ratio(r["full"], r["replay"])
+            print(f"{r['robot']:<14}{min(r['full']) * 1e6:>11.1f}"
+                  f"{min(r['independent']) * 1e6:>10.1f}{min(r['replay']) * 1e6:>10.1f}"
+                  f"{mi:>8.2f} ({qi:.2f}-{ti:.2f}){mr:>8.2f} ({qr:.2f}-{tr:.2f})"
+                  f"{r['upright_contacts']:>11.2f} / {r['independent_contacts']:.2f}"
+                  f"{r['rtf']:>6.1f}x")
+            print(f"{'':<14}trace-writing process: {r['writer_us']:.1f} us of CPU per step, "
+                  "on another core")
+    print("targets: upright/independent <= 1.3, upright/replay <= 1.15 (costs: best round)")
 
 
 if __name__ == "__main__":
