@@ -156,19 +156,37 @@ def floor_pieces(ground: Ground) -> list[tuple[float, float, float]]:
     return pieces
 
 
+def gaussian_smooth_wrapped(values: np.ndarray, sigma: float, truncate: float = 4.0) -> np.ndarray:
+    """Gaussian smoothing of a grid along each axis in turn, wrapping at the edges.
+
+    The same numbers, to the last bit, as ``scipy.ndimage.gaussian_filter(values,
+    sigma, mode="wrap", truncate=truncate)`` (its kernel, its order of sums; tested),
+    in plain numpy: importing scipy.ndimage costs a fifth of a second of every run on
+    rough floor. ``sigma`` in grid cells.
+    """
+    radius = int(truncate * float(sigma) + 0.5)
+    x = np.arange(-radius, radius + 1)
+    weights = np.exp(-0.5 / (sigma * sigma) * x ** 2)
+    weights = weights / weights.sum()
+    out = np.asarray(values, dtype=float)
+    for axis in range(out.ndim):
+        source, out = out, out * weights[radius]
+        for j in range(radius, 0, -1):  # outermost taps first, as scipy sums them
+            out = out + (np.roll(source, j, axis) + np.roll(source, -j, axis)) * weights[radius - j]
+    return out
+
+
 def rough_heights(rough: Rough, spacing: float, extent=ROUGH_EXTENT,
                   half_width: float = ROUGH_HALF_WIDTH) -> np.ndarray:
     """Heights (m) on a grid, rows along x: smoothed seeded noise scaled to ±amplitude.
 
     The first half metre ramps up from flat so the robot starts on level floor.
     """
-    from scipy.ndimage import gaussian_filter
-
     rng = np.random.default_rng(rough.seed)
     nx = int(round((extent[1] - extent[0]) / spacing)) + 1
     ny = int(round(2 * half_width / spacing)) + 1
     noise = rng.standard_normal((nx, ny))
-    heights = gaussian_filter(noise, sigma=rough.wavelength / (4.0 * spacing), mode="wrap")
+    heights = gaussian_smooth_wrapped(noise, rough.wavelength / (4.0 * spacing))
     peak = float(np.max(np.abs(heights)))
     heights *= rough.amplitude / peak if peak > 0 else 0.0
     x = extent[0] + spacing * np.arange(nx)
