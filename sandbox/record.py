@@ -281,7 +281,10 @@ def write_json(path: Path, data: dict[str, Any]) -> None:
 
 
 def write_yaml(path: Path, data: dict[str, Any]) -> None:
-    path.write_text(yaml.safe_dump(_plain(data), sort_keys=False), encoding="utf-8")
+    # libyaml's emitter where installed (the same text as safe_dump's, measured on every
+    # record of a suite; about 4x faster: two records a run)
+    dumper = getattr(yaml, "CSafeDumper", yaml.SafeDumper)
+    path.write_text(yaml.dump(_plain(data), Dumper=dumper, sort_keys=False), encoding="utf-8")
 
 
 def _plain(value: Any) -> Any:
