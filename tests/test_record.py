@@ -6,7 +6,6 @@ import os
 import signal
 import subprocess
 import sys
-import tempfile
 import textwrap
 import time
 from pathlib import Path
@@ -123,8 +122,11 @@ def test_killed_simulation_leaves_every_block_it_sent(tmp_path):
         time.sleep(0.5)
         os.kill(os.getpid(), signal.SIGKILL)
     """)
-    started = time.time() - 1.0
-    done = subprocess.run([sys.executable, "-c", script], timeout=60)
+    # a scratch folder of this test's own, so other runs' scratch files do not count
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    done = subprocess.run([sys.executable, "-c", script], timeout=60,
+                          env={**os.environ, "TMPDIR": str(scratch)})
     assert done.returncode == -signal.SIGKILL
     lines = []
     for _ in range(100):  # the writing process may still be finishing
@@ -135,8 +137,7 @@ def test_killed_simulation_leaves_every_block_it_sent(tmp_path):
     assert len(lines) == 1 + 30, "header and the three blocks of ten rows sent"
     assert lines[0].split(",")[-1] == "log.k"
     assert lines[-1].split(",")[0] == "29"
-    numbers = [p for p in Path(tempfile.gettempdir()).glob("upright-trace-*.f64")
-               if p.stat().st_mtime >= started]
+    numbers = list(scratch.glob("upright-trace-*.f64"))
     assert not numbers, "the writing process removes its scratch file when nobody reads it"
 
 
