@@ -195,6 +195,8 @@ class DriveTrain:
         self._rest_rate_dt = math.nan  # the step the band was worked out for
         self._duty_left = self._duty_right = 0.0
         self._current_left = self._current_right = 0.0
+        # (left, right) torque of the last step (N·m at the output shaft, friction in)
+        self.last_torques = (0.0, 0.0)
         self._battery_current = 0.0
         self._charge = battery.charge
         self._terminal_voltage = self._terminal(self._charge, 0.0)
@@ -314,7 +316,8 @@ class DriveTrain:
             self._terminal_voltage = terminal if terminal > 0.0 else 0.0
         else:
             self._terminal_voltage = self._terminal(charge, battery_current)
-        return torque_left, torque_right
+        torques = self.last_torques = (torque_left, torque_right)
+        return torques
 
     def _step_sides(self, rate_left: float, rate_right: float, dt: float) -> tuple[float, float]:
         """``step`` for two motors that differ or that stick and slip: the same model, each
@@ -340,7 +343,8 @@ class DriveTrain:
             currents.append(current)
         self._current_left, self._current_right = currents
         self._draw(self._duty_left * currents[0] + self._duty_right * currents[1], dt)
-        return torques[0], torques[1]
+        out = self.last_torques = (torques[0], torques[1])
+        return out
 
     # ----------------------------------------------------------------- internals
 

@@ -31,8 +31,13 @@ import yaml
 from . import tracefile
 from .tracefile import (
     COLUMNS,
+    DRIVE_COLUMNS,
+    EVENT_COLUMN,
     LOG_PREFIX,
+    PLAY_COLUMNS,
     POSE_COLUMNS,
+    RUN_COLUMNS,
+    TEXT_COLUMNS,
     TRUE_COLUMNS,
     TraceBlocks,
     pack_message,
@@ -44,8 +49,9 @@ try:
 except ImportError:  # not on Windows
     fcntl = None
 
-__all__ = ["COLUMNS", "LOG_PREFIX", "POSE_COLUMNS", "TRUE_COLUMNS", "TraceWriter", "read_trace",
-           "write_json", "write_yaml", "default_run_dir"]
+__all__ = ["COLUMNS", "DRIVE_COLUMNS", "EVENT_COLUMN", "LOG_PREFIX", "PLAY_COLUMNS",
+           "POSE_COLUMNS", "RUN_COLUMNS", "TEXT_COLUMNS", "TRUE_COLUMNS", "TraceWriter",
+           "read_trace", "write_json", "write_yaml", "default_run_dir"]
 
 
 def default_run_dir(root: Path, robot: str, controller: str, test: str) -> Path:
@@ -71,14 +77,18 @@ class TraceWriter:
     With a path, blocks of rows go to the trace-writing process
     (:mod:`sandbox.tracefile`), which formats and writes them on another core
     (or, where no such process can start, this process writes them itself);
-    without one, the rows are only kept, in this process. Controller channels
+    without one, the rows are only kept, in this process. ``columns`` names the
+    fixed columns of each row, in order (a run's are ``RUN_COLUMNS``, with
+    ``PLAY_COLUMNS`` before ``event`` when there is backlash); a text column
+    (``TEXT_COLUMNS``) holds a string, mostly empty. Controller channels
     (``log.<name>``) are fixed by the names seen in the first block of rows; a
     name first logged later is counted in ``dropped_channels``.
     """
 
-    def __init__(self, path: Path | None, block_rows: int = 50):
+    def __init__(self, path: Path | None, block_rows: int = 50, columns: tuple = COLUMNS):
         self.path = path
         self.block_rows = block_rows
+        self.columns = tuple(columns)
         self._rows: list[tuple] = []
         self._logs: list[dict[str, float]] = []
         self._result: dict | None = None
@@ -89,7 +99,7 @@ class TraceWriter:
         self._numbers: np.ndarray | None = None
         self._handle = None  # the CSV, when this process writes it itself
         if path is None:
-            self._blocks = TraceBlocks()
+            self._blocks = TraceBlocks(columns=self.columns)
             return
         # created (or emptied) here, so a folder that cannot be written fails at once
         with open(path, "w", encoding="utf-8"):
@@ -98,7 +108,7 @@ class TraceWriter:
             writing = writing_process()
         except OSError:  # no helper can start here: format and write in this process
             self._handle = open(path, "a", newline="", encoding="utf-8")  # noqa: SIM115
-            self._blocks = TraceBlocks(self._handle)
+            self._blocks = TraceBlocks(self._handle, columns=self.columns)
             return
         handle, numbers = tempfile.mkstemp(prefix="upright-trace-", suffix=".f64")
         os.close(handle)
@@ -106,13 +116,14 @@ class TraceWriter:
         self._id = next(_trace_ids)
         self._writing = writing
         try:
-            self._send(("open", self._id, _open_payload(path, self._numbers_path)))
+            self._send(("open", self._id,
+                        tuple(_open_payload(path, self._numbers_path)) + (self.columns,)))
         except BaseException:
             self._numbers_path.unlink(missing_ok=True)
             raise
 
     def add(self, row: tuple, logs: dict[str, float]) -> None:
-        """One row: values in COLUMNS order, then the controller's logged channels."""
+        """One row: values in ``columns`` order, then the controller's logged channels."""
         self._rows.append(row)
         self._logs.append(logs)
         if len(self._rows) >= self.block_rows:
@@ -157,13 +168,27 @@ class TraceWriter:
         self._writing.send(pack_message(message), self.path)
 
     def arrays(self) -> dict[str, np.ndarray]:
-        """The recorded columns as numpy arrays, logs as ``log.<name>`` (after :meth:`close`)."""
+        """The recorded columns as numpy arrays, logs as ``log.<name>`` (after :meth:`close`);
+        a text column as an array of strings ("" where the cell is empty)."""
         if self._result is None:
             self.close()
         names = self._result["names"]
-        columns = list(COLUMNS) + [LOG_PREFIX + n for n in names]
-        table = self._numbers.reshape(self._result["rows"], len(columns))
-        return {name: table[:, i].copy() for i, name in enumerate(columns)}
+        rows = self._result["rows"]
+        numeric = [c for c in self.columns if c not in TEXT_COLUMNS]
+        numeric += [LOG_PREFIX + n for n in names]
+        table = self._numbers.reshape(rows, len(numeric))
+        out = {name: table[:, i].copy() for i, name in enumerate(numeric)}
+        texts = self._result.get("texts", {})
+        ordered = {}
+        for name in list(self.columns) + [LOG_PREFIX + n for n in names]:
+            if name in TEXT_COLUMNS:
+                cells = [""] * rows
+                for number, text in texts.get(name, ()):
+                    cells[number] = text
+                ordered[name] = np.array(cells, dtype=str)
+            else:
+                ordered[name] = out[name]
+        return ordered
 
 
 def _open_payload(path: Path, numbers_path: Path) -> tuple[str, str]:
@@ -267,13 +292,27 @@ def writing_process() -> _WritingProcess:
 
 
 def read_trace(path: Path) -> dict[str, np.ndarray]:
-    """A trace CSV back into named float arrays (empty cells become NaN)."""
+    """A trace CSV back into named arrays: floats (empty cells become NaN), and strings
+    for a text column (``event``, or any column whose cells are not all numbers)."""
     with open(path, newline="", encoding="utf-8") as handle:
         reader = csv.reader(handle)
         header = next(reader)
-        rows = [[float(v) if v else math.nan for v in row] for row in reader if row]
-    data = np.array(rows, dtype=float).reshape(len(rows), len(header))
-    return {name: data[:, i] for i, name in enumerate(header)}
+        rows = [row for row in reader if row]
+    width = len(header)
+    for row in rows:
+        if len(row) != width:
+            raise ValueError(f"{path}: a row has {len(row)} cells, the header {width}")
+    out = {}
+    for i, name in enumerate(header):
+        cells = [row[i] for row in rows]
+        if name in TEXT_COLUMNS:
+            out[name] = np.array(cells, dtype=str)
+            continue
+        try:
+            out[name] = np.array([float(v) if v else math.nan for v in cells], dtype=float)
+        except ValueError:  # a text column this reader does not know by name
+            out[name] = np.array(cells, dtype=str)
+    return out
 
 
 def write_json(path: Path, data: dict[str, Any]) -> None:

@@ -29,6 +29,7 @@ from .control import (
     ControllerError,
     Reading,
     RobotFacts,
+    Setpoint,
     check_duties,
     controller_rate,
     failure_text,
@@ -43,10 +44,12 @@ from .interrupts import is_user_interrupt
 from .isolate import IsolatedController, build_controller
 from .metrics import run_figures
 from .rates import nearby_rates
-from .record import TraceWriter, write_json, write_yaml
+from .record import PLAY_COLUMNS, RUN_COLUMNS, TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
 from .schedule import DutyLine, ImuSamples, TickClock, imu_truth
 from .world import Ground, World
+
+_STILL = Setpoint()  # the setpoint of a run without a test: stand still
 
 STATUS_COMPLETED = "completed"
 STATUS_FELL = "fell"
@@ -141,7 +144,8 @@ class Simulation:
         try:
             # without a folder the trace is kept in memory only (sweeps need the figures)
             writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
-                                 block_rows=50 if folder is not None else 2000)
+                                 block_rows=50 if folder is not None else 2000,
+                                 columns=trace_columns(_has_backlash(world)))
         except OSError:
             world.close()
             raise
@@ -233,6 +237,11 @@ class _Loop:
                       or partial(_tick_sense, world, gravity, s.physics_dt))
         self.reading = Reading(dt=sim.period)
         self.timeline = sim.timeline
+        self.voltage_drop = float(spec.driver.voltage_drop)
+        # with backlash the play is recorded, and an encoder on the motor shaft counts
+        # the motor side (its count includes the play)
+        self.backlash = _has_backlash(world)
+        self.motor_encoders = self.backlash and self.encoders.shaft == "motor"
         self.status, self.message, self.fell_at = STATUS_COMPLETED, "", None
         self.clipped = 0
         self.ticks_run = 0
@@ -254,26 +263,43 @@ class _Loop:
     def tick(self, tick: int) -> bool:
         """One controller tick at the present step; True if the robot fell."""
         t = self.clock.time_of(tick)
-        if self.timeline is not None:
-            self.timeline.fire(t, self.x, self.world, self.drive, self.imu, self.encoders)
+        event = self.fire(t) if self.timeline is not None else ""
         (pitch, pitch_rate, yaw, speed, pose, q, angle_l, angle_r, true_rate,
          true_force) = self.sense(self.mount)
         truth, elapsed = self.samples.seen(self.step, tick == 0, (true_rate, true_force))
         gyro, accel = self.imu.read(truth[0], truth[1], elapsed)
-        ticks_lr = self.encoders.ticks(angle_l, angle_r)
+        if self.backlash:
+            motor_l, motor_r = self.world.motor_angles()
+            play = (motor_l - angle_l, motor_r - angle_r)
+            ticks_lr = (self.encoders.ticks(motor_l, motor_r) if self.motor_encoders
+                        else self.encoders.ticks(angle_l, angle_r))
+        else:
+            ticks_lr = self.encoders.ticks(angle_l, angle_r)
         if tick:
             self.x += 0.5 * (speed + self.last_speed) * (t - self.clock.time_of(tick - 1)
                                                          if self.clock.jittered else
                                                          self.sim.period)
         self.last_speed = speed
-        left, right = self.control(t, tick, gyro, accel, ticks_lr)
+        left, right, raw_l, raw_r = self.control(t, tick, gyro, accel, ticks_lr)
         drive = self.drive
-        self.writer.add((
+        # the duties due at the bridge now (as the world's next step would take them):
+        # the voltage column is what the bridge applies from this tick on
+        self.duties.deliver(self.step, drive)
+        supply = drive.battery_voltage - self.voltage_drop
+        if supply < 0.0:
+            supply = 0.0
+        torque_l, torque_r = drive.last_torques
+        _, _, rate_l, rate_r = self.world.wheel_state()
+        setpoint = self.timeline.setpoint if self.timeline is not None else _STILL
+        row = (
             t, self.x, pitch, pitch_rate, yaw, speed, left, right,
             drive.current_left, drive.current_right, drive.battery_voltage,
             gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2], ticks_lr[0], ticks_lr[1],
             pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
-        ), self.reading.take_logs())
+            setpoint.speed, setpoint.turn, drive.duty_left * supply, drive.duty_right * supply,
+            torque_l, torque_r, rate_l, rate_r, raw_l, raw_r, event,
+        )
+        self.writer.add(row + play if self.backlash else row, self.reading.take_logs())
         self.ticks_run = tick + 1
         if abs(pitch) > self.sim.settings.fall_limit or self.world.body_touching(
                 pitch, tick % 20 == 0):
@@ -282,8 +308,21 @@ class _Loop:
             return True
         return False
 
-    def control(self, t: float, tick: int, gyro, accel, ticks_lr) -> tuple[float, float]:
-        """Hand the controller this tick's reading; send its duties towards the bridge."""
+    def fire(self, t: float) -> str:
+        """Fire the test's events due now; the names of those that fired ("" if none)."""
+        marks = getattr(self.timeline, "marks", None)
+        before = len(marks) if marks is not None else 0
+        self.timeline.fire(t, self.x, self.world, self.drive, self.imu, self.encoders)
+        if marks is None or len(marks) == before:
+            return ""
+        return "; ".join(str(label) for _, label in marks[before:])
+
+    def control(self, t: float, tick: int, gyro, accel,
+                ticks_lr) -> tuple[float, float, float, float]:
+        """Hand the controller this tick's reading; send its duties towards the bridge.
+
+        Returns the duties (clipped to [-1, 1]) and the duties as returned (before clipping).
+        """
         r = self.reading
         r.t, r.gyro, r.accel, r.ticks = t, gyro, accel, ticks_lr
         if self.clock.jittered:
@@ -301,9 +340,12 @@ class _Loop:
             left, right, was_clipped = check_duties(out)
         except Exception as err:  # a returned object whose iteration raises, too
             raise _failure(err, "step", t, self.sim.controller_class) from None
-        self.clipped += was_clipped
+        raw_l, raw_r = left, right
+        if was_clipped:
+            self.clipped += 1
+            raw_l, raw_r = _returned_duties(out, left, right)
         self.duties.send(self.step, left, right)
-        return left, right
+        return left, right, raw_l, raw_r
 
     def advance_to(self, target: int) -> None:
         """Advance the world to the step of the next tick, stopping where something is due."""
@@ -322,6 +364,26 @@ class _Loop:
             samples.reached(step, target, world)
         samples.end_period(target, world)
         self.step = step
+
+
+def _returned_duties(out: Any, left: float, right: float) -> tuple[float, float]:
+    """The duties as ``step`` returned them, before clipping (checked finite numbers); the
+    clipped ones if what it returned cannot be read twice (an iterator)."""
+    try:
+        return float(out[0]), float(out[1])
+    except (TypeError, ValueError, IndexError, KeyError):
+        return left, right
+
+
+def trace_columns(backlash: bool) -> tuple[str, ...]:
+    """A run's fixed trace columns: DESIGN.md's, the pose, the drive's columns, ``event``;
+    with backlash the play angles follow ``event``."""
+    return RUN_COLUMNS + PLAY_COLUMNS if backlash else RUN_COLUMNS
+
+
+def _has_backlash(world: Any) -> bool:
+    """Whether the world models gearbox play (a test's fake world may not know of it)."""
+    return float(getattr(world, "backlash", 0.0) or 0.0) > 0.0
 
 
 def _tick_sense(world: Any, gravity, dt: float, mount) -> tuple:

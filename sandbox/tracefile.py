@@ -12,11 +12,17 @@ or several at once. Standard library only: it starts without numpy.
 Messages on its stdin, and replies on its stdout: an 8-byte little-endian
 length, then a pickle of ``(kind, trace, payload)``:
 
-- ``("open", id, (csv_path, numbers_path))``: start a trace;
-- ``("rows", id, (rows, logs))``: row tuples in COLUMNS order and one dict of
-  logged channels per row;
+- ``("open", id, (csv_path, numbers_path[, columns]))``: start a trace whose
+  fixed columns are ``columns`` (default COLUMNS);
+- ``("rows", id, (rows, logs))``: row tuples in the trace's column order and one
+  dict of logged channels per row;
 - ``("close", id, None)``: finish the trace; the reply is
-  ``{"names", "dropped", "rows"}``, or ``{"error": text}``.
+  ``{"names", "dropped", "rows", "texts"}``, or ``{"error": text}``.
+
+Text columns (TEXT_COLUMNS, such as ``event``) hold a string in the row, mostly
+empty: the CSV gets it quoted where needed, the numbers file leaves it out, and
+the non-empty cells come back in the reply's ``texts`` as ``{column: [[row, text],
+...]}``.
 
 At the end of its input (the simulation has ended, or was killed) it
 completes every open trace's CSV, removes their scratch files and exits.
@@ -45,7 +51,20 @@ POSE_COLUMNS = (
     "wheel_l_rad", "wheel_r_rad",
 )
 COLUMNS = TRUE_COLUMNS + POSE_COLUMNS
+# What a builder asks of a run besides DESIGN.md's columns: the setpoint the test
+# commands, each motor's voltage and torque, each wheel's rate, the controller's duties
+# before clipping, and (text) the disturbance that fired on the tick.
+DRIVE_COLUMNS = (
+    "setpoint_speed_m_s", "setpoint_turn_rad_s", "voltage_l_v", "voltage_r_v",
+    "torque_l_n_m", "torque_r_n_m", "wheel_rate_l_rad_s", "wheel_rate_r_rad_s",
+    "duty_raw_l", "duty_raw_r",
+)
+EVENT_COLUMN = "event"
+# each gearbox's motor side less its wheel, only when motors.backlash is on
+PLAY_COLUMNS = ("play_l_rad", "play_r_rad")
+RUN_COLUMNS = COLUMNS + DRIVE_COLUMNS + (EVENT_COLUMN,)
 INT_COLUMNS = frozenset({"ticks_l", "ticks_r"})
+TEXT_COLUMNS = frozenset({EVENT_COLUMN})
 LOG_PREFIX = "log."
 LENGTH = struct.Struct("<Q")
 
@@ -53,15 +72,19 @@ LENGTH = struct.Struct("<Q")
 class TraceBlocks:
     """Takes blocks of rows; writes them as CSV to ``handle`` (if any) and keeps the numbers.
 
-    The numbers of each row (COLUMNS, then the log channels) go to ``numbers``
-    or, with ``numbers_handle``, are appended to that binary file block by block.
-    Controller channels (``log.<name>``) are fixed by the names seen in the
-    first block; a name first logged later is counted in ``dropped``.
+    The numbers of each row (the numeric ones of ``columns``, then the log
+    channels) go to ``numbers`` or, with ``numbers_handle``, are appended to that
+    binary file block by block; the non-empty cells of text columns are kept in
+    ``texts``. Controller channels (``log.<name>``) are fixed by the names seen in
+    the first block; a name first logged later is counted in ``dropped``.
     """
 
-    def __init__(self, handle=None, numbers_handle=None):
+    def __init__(self, handle=None, numbers_handle=None, columns: tuple = COLUMNS):
         self.handle = handle
         self.numbers_handle = numbers_handle
+        self.columns = tuple(columns)
+        self.text_index = tuple(i for i, c in enumerate(self.columns) if c in TEXT_COLUMNS)
+        self.texts: dict[str, list[list]] = {self.columns[i]: [] for i in self.text_index}
         self.names: list[str] | None = None
         self.dropped: set[str] = set()
         self.rows = 0
@@ -81,8 +104,12 @@ class TraceBlocks:
         name_set = set(names)
         numbers = self.numbers
         lines = []
-        for row, entry in zip(rows, logs):
-            numbers.extend(row)
+        text_index = self.text_index
+        for number, (row, entry) in enumerate(zip(rows, logs), start=self.rows):
+            if text_index:
+                row = self._take_texts(row, number)
+            else:
+                numbers.extend(row)
             if entry.keys() == name_set:  # every channel, and no new one: the usual row
                 values = tuple(entry[n] for n in names)
                 if self.handle is not None:
@@ -103,12 +130,28 @@ class TraceBlocks:
             self.numbers_handle.flush()
             del numbers[:]
 
+    def _take_texts(self, row: tuple, number: int) -> tuple:
+        """Keep row ``number``'s numbers and non-empty texts; the row with its texts
+        made CSV cells."""
+        start = 0
+        cells = row
+        for i in self.text_index:
+            self.numbers.extend(row[start:i])
+            start = i + 1
+            text = row[i]
+            if text:
+                self.texts[self.columns[i]].append([number, text])
+                cells = cells[:i] + (_text_cell(text),) + cells[i + 1:]
+        self.numbers.extend(row[start:])
+        return cells
+
     def _start(self, names: list[str]) -> None:
         self.names = names
-        self._format = ",".join("%d" if c in INT_COLUMNS else "%.9g" for c in COLUMNS)
+        self._format = ",".join("%d" if c in INT_COLUMNS else "%s" if c in TEXT_COLUMNS
+                                else "%.9g" for c in self.columns)
         self._format_all = self._format + ",%.9g" * len(names)
         if self.handle is not None:
-            header = list(COLUMNS) + [LOG_PREFIX + n for n in names]
+            header = list(self.columns) + [LOG_PREFIX + n for n in names]
             csv.writer(self.handle, lineterminator="\n").writerow(header)
             self.handle.flush()
 
@@ -118,12 +161,24 @@ class TraceBlocks:
             self.take([], [])
 
     def result(self) -> dict:
-        """Log channel names, dropped channels and the row count."""
-        return {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows}
+        """Log channel names, dropped channels, the row count and the non-empty texts."""
+        out = {"names": self.names or [], "dropped": sorted(self.dropped), "rows": self.rows}
+        if self.texts:
+            out["texts"] = self.texts
+        return out
 
 
 def _cell(value: float | None) -> str:
     return "" if value is None else "%.9g" % value
+
+
+def _text_cell(text: str) -> str:
+    """A text as one CSV cell: quoted (quotes doubled) where it holds a comma, a quote or
+    a line break, as the csv module reads it back."""
+    text = str(text)
+    if any(c in text for c in ',"\r\n'):
+        return '"' + text.replace('"', '""') + '"'
+    return text
 
 
 def read_message(stream) -> tuple | dict | None:
@@ -147,7 +202,7 @@ def pack_message(message: tuple | dict) -> bytes:
 class _Trace:
     """One open trace in the writing process: its files, or why it cannot be written."""
 
-    def __init__(self, csv_path: str, numbers_path: str):
+    def __init__(self, csv_path: str, numbers_path: str, columns: tuple = COLUMNS):
         self.numbers_path = numbers_path
         self.error = ""
         self.handle = self.numbers = None
@@ -156,7 +211,7 @@ class _Trace:
             self.numbers = open(numbers_path, "ab")  # noqa: SIM115
         except OSError as err:
             self.fail(err)
-        self.blocks = TraceBlocks(self.handle, self.numbers)
+        self.blocks = TraceBlocks(self.handle, self.numbers, columns)
 
     def take(self, rows: list[tuple], logs: list[dict]) -> None:
         if not self.error:

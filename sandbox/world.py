@@ -615,10 +615,11 @@ class World:
     def play_angles(self) -> tuple[float, float] | None:
         """Each gearbox's motor side less its wheel (rad, left and right), within ±half
         the play while the gap is open; None without backlash."""
-        if self._gearbox is None:
+        motor = self.motor_angles()
+        if motor is None:
             return None
         left, right, _, _ = self.wheel_state()
-        return self._gearbox.play_angles(left, right)
+        return motor[0] - left, motor[1] - right
 
     def motor_angles(self) -> tuple[float, float] | None:
         """Motor-side angles at the output shaft relative to the body (rad, left and
@@ -626,6 +627,9 @@ class World:
         None without backlash, where they are the wheels' angles."""
         if self._gearbox is None:
             return None
+        if not self._gearbox._started:  # before the first step: in the middle of the play
+            left, right, _, _ = self.wheel_state()
+            return left, right
         return self._gearbox.motor_angle[0], self._gearbox.motor_angle[1]
 
     def _advance_geared(self, steps: int, drive) -> None:

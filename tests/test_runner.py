@@ -21,7 +21,7 @@ import yaml
 from typer.testing import CliRunner
 
 from sandbox.cli import app
-from sandbox.record import POSE_COLUMNS, read_trace
+from sandbox.record import DRIVE_COLUMNS, EVENT_COLUMN, POSE_COLUMNS, TEXT_COLUMNS, read_trace
 from sandbox.robot import load_robot
 from sandbox.runner import RunSettings, Simulation, TimingError, run
 from sandbox.world import World
@@ -410,7 +410,8 @@ def test_ctrl_c_keeps_a_valid_trace(shelf_runner, tmp_path):
     trace = read_trace(tmp_path / "trace.csv")
     assert trace["t_s"].size == 100
     np.testing.assert_allclose(trace["t_s"], np.arange(100) * 0.005, atol=1e-9)
-    assert all(np.all(np.isfinite(column)) for column in trace.values())
+    assert all(np.all(np.isfinite(column)) for name, column in trace.items()
+               if name not in TEXT_COLUMNS)
     assert json.loads((tmp_path / "summary.json").read_text())["status"] == "interrupted"
 
 
@@ -474,12 +475,16 @@ def cascade_run(tmp_path_factory):
 
 
 def test_trace_columns(cascade_run):
-    """trace.csv: DESIGN.md's columns in order, then the pose columns, then log.<name>."""
+    """trace.csv: DESIGN.md's columns in order, then the pose columns, the drive's columns
+    and ``event``, then log.<name>."""
     _, folder = cascade_run
     header = (folder / "trace.csv").read_text().splitlines()[0].split(",")
     assert header[:19] == DESIGN_COLUMNS
     assert header[19:19 + len(POSE_COLUMNS)] == list(POSE_COLUMNS)
-    assert header[19 + len(POSE_COLUMNS):] == [
+    after_pose = 19 + len(POSE_COLUMNS)
+    assert header[after_pose:after_pose + len(DRIVE_COLUMNS) + 1] == [
+        *DRIVE_COLUMNS, EVENT_COLUMN]
+    assert header[after_pose + len(DRIVE_COLUMNS) + 1:] == [
         "log.tilt_est_rad", "log.target_tilt_rad", "log.speed_est_m_s"]
 
 
@@ -528,6 +533,9 @@ def test_read_trace_round_trips(cascade_run):
     back = read_trace(folder / "trace.csv")
     assert set(back) == set(result.trace)
     for name, column in result.trace.items():
+        if name in TEXT_COLUMNS:
+            np.testing.assert_array_equal(back[name], column, err_msg=name)
+            continue
         np.testing.assert_allclose(back[name], column, rtol=1e-8, atol=1e-12, err_msg=name)
     np.testing.assert_array_equal(back["ticks_l"], result.trace["ticks_l"])
 

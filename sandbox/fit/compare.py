@@ -8,7 +8,6 @@ On the overlap, the RMS differences of pitch, pitch rate, speed and duty are rep
 from __future__ import annotations
 
 import csv
-import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -29,18 +28,17 @@ class Comparison:
 
 
 def _trace(path: Path) -> dict[str, np.ndarray]:
-    with path.open(newline="") as handle:
-        rows = list(csv.reader(handle))
-    if len(rows) < 3:
+    """The run's trace (``sandbox.record.read_trace``), its ``event`` texts as ``event_text``."""
+    from ..record import read_trace
+
+    try:
+        out = read_trace(path)
+    except (ValueError, StopIteration, csv.Error) as err:
+        raise LogError(str(path), f"the run's trace cannot be read: {err}") from None
+    if out.get("t_s", np.zeros(0)).size < 2:
         raise LogError(str(path), "the run's trace has fewer than two rows")
-    header = rows[0]
-    out = {}
-    for i, name in enumerate(header):
-        try:
-            out[name] = np.array([float(r[i]) if r[i] != "" else math.nan for r in rows[1:]])
-        except (ValueError, IndexError):
-            if name == "event":
-                out["event_text"] = np.array([r[i] if i < len(r) else "" for r in rows[1:]])
+    if "event" in out:
+        out["event_text"] = out.pop("event")
     return out
 
 
