@@ -159,7 +159,7 @@ def analyze_controller(spec: Any, controller: str, config: dict | None = None, *
         "phase_margins_deg_all": list(margins.phase_margins_all),
         "gain_crossovers_hz_all": list(margins.gain_crossovers_hz),
         "latency_margin_s": latency_margin(A, B, geometry, timing, found.model),
-        "warnings": list(found.warnings),
+        "warnings": list(found.warnings) + _unmodelled(spec),
     }
     result["findings"] = findings(result, poles, plant.period, gains)
     if plot is not None:
@@ -167,6 +167,15 @@ def analyze_controller(spec: Any, controller: str, config: dict | None = None, *
                   title=f"{spec.name}, {Path(controller.split('.py:')[0]).name}",
                   crossover_hz=margins.crossover_hz)
     return result
+
+
+def _unmodelled(spec: Any) -> list[str]:
+    """Warnings for parts of the run the sampled linear loop leaves out."""
+    if getattr(spec.imu, "filtering", False):
+        return ["the IMU's own low-pass filter (imu.gyro/accel.bandwidth) is not in the linear "
+                "loop: its delay costs phase, so expect less margin than stated; check with "
+                "`upright margins`"]
+    return []
 
 
 def _gains_json(found: Any, gains: dict) -> dict[str, Any]:
@@ -219,12 +228,6 @@ def findings(result: dict, poles: np.ndarray, period: float, gains: dict) -> lis
             f"{fmt(lqr['v_m_s'], 3)} duty per m/s as the LQR design has, and a position "
             "term to hold its spot"), "figures": {"poles_at_one": len(at_one)}})
     else:
-        k_x = eq["x_m"]
-        if k_x is not None and abs(k_x) < NEGLIGIBLE * abs(lqr["x_m"]):
-            out.append({"code": "no_position_feedback", "text": (
-                "no feedback from the wheel position: the robot keeps a closed-loop pole at "
-                f"z = 1 and drifts from its spot; add a position term (the LQR design has "
-                f"{fmt(lqr['x_m'], 3)} duty per m) to hold it"), "figures": {"k_x": k_x}})
         k_v = eq["v_m_s"]
         if k_v is not None and abs(k_v) < NEGLIGIBLE * abs(lqr["v_m_s"]):
             out.append({"code": "no_speed_feedback", "text": (
@@ -234,6 +237,12 @@ def findings(result: dict, poles: np.ndarray, period: float, gains: dict) -> lis
                 f"of z = 1); add a speed term (the LQR design has {fmt(lqr['v_m_s'], 3)} duty "
                 "per m/s)"),
                 "figures": {"k_v": k_v}})
+        k_x = eq["x_m"]
+        if k_x is not None and abs(k_x) < NEGLIGIBLE * abs(lqr["x_m"]):
+            out.append({"code": "no_position_feedback", "text": (
+                "no feedback from the wheel position: the robot keeps a closed-loop pole at "
+                f"z = 1 and drifts from its spot; add a position term (the LQR design has "
+                f"{fmt(lqr['x_m'], 3)} duty per m) to hold it"), "figures": {"k_x": k_x}})
     for key, (label, unit) in STATE_LABELS.items():
         k, ref = eq[key], lqr[key]
         if k is None or abs(k) < NEGLIGIBLE * abs(ref) or k * ref >= 0:
