@@ -39,7 +39,7 @@ from .response import (
 STATE_LABELS = {"x_m": ("position", "duty/m"), "v_m_s": ("wheel speed", "duty/(m/s)"),
                 "pitch_rad": ("tilt", "duty/rad"),
                 "pitch_rate_rad_s": ("tilt rate", "duty/(rad/s)")}
-NEGLIGIBLE = 1e-4  # an equivalent gain below this fraction of the LQR's counts as none
+NEGLIGIBLE = 1e-2  # an equivalent gain below 1 % of the LQR's counts as none (rule of thumb)
 MAX_LATENCY_SCAN_S = 1.0
 
 
@@ -73,7 +73,7 @@ def duty_delay_steps(spec: Any, latency: float, physics_dt: float) -> int:
 
 
 def geometry_of(spec: Any, facts: RobotFacts) -> SensorGeometry:
-    per_rev = float(getattr(facts, "counts_per_wheel_rev", facts.counts_per_rev))
+    per_rev = float(facts.counts_per_wheel_rev)
     return SensorGeometry(wheel_radius=float(spec.wheels.radius),
                           counts_per_radian=per_rev / (2.0 * math.pi),
                           imu_height=float(spec.imu.at[2]))
@@ -159,7 +159,7 @@ def analyze_controller(spec: Any, controller: str, config: dict | None = None, *
         "phase_margins_deg_all": list(margins.phase_margins_all),
         "gain_crossovers_hz_all": list(margins.gain_crossovers_hz),
         "latency_margin_s": latency_margin(A, B, geometry, timing, found.model),
-        "warnings": list(found.warnings),
+        "warnings": list(found.warnings) + _unmodelled(spec),
     }
     result["findings"] = findings(result, poles, plant.period, gains)
     if plot is not None:
@@ -167,6 +167,15 @@ def analyze_controller(spec: Any, controller: str, config: dict | None = None, *
                   title=f"{spec.name}, {Path(controller.split('.py:')[0]).name}",
                   crossover_hz=margins.crossover_hz)
     return result
+
+
+def _unmodelled(spec: Any) -> list[str]:
+    """Warnings for parts of the run the sampled linear loop leaves out."""
+    if getattr(spec.imu, "filtering", False):
+        return ["the IMU's own low-pass filter (imu.gyro/accel.bandwidth) is not in the linear "
+                "loop: its delay costs phase, so expect less margin than stated; check with "
+                "`upright margins`"]
+    return []
 
 
 def _gains_json(found: Any, gains: dict) -> dict[str, Any]:
@@ -212,24 +221,28 @@ def findings(result: dict, poles: np.ndarray, period: float, gains: dict) -> lis
         result["controller_gains"]["ticks_right"]["used"]
     if not encoders_used:
         out.append({"code": "no_wheel_feedback", "text": (
-            "no feedback from the encoders: nothing holds the wheel speed or the position, so "
+            "the loop lacks wheel-speed feedback (no response to the encoders): nothing holds "
+            "the wheel speed or the position, so "
             "the robot creeps away and speeds up until the motors reach their top speed "
             f"(closed-loop poles at z = 1 and beyond); add a wheel-speed term, e.g. "
             f"{fmt(lqr['v_m_s'], 3)} duty per m/s as the LQR design has, and a position "
             "term to hold its spot"), "figures": {"poles_at_one": len(at_one)}})
     else:
+        k_v = eq["v_m_s"]
+        if k_v is not None and abs(k_v) < NEGLIGIBLE * abs(lqr["v_m_s"]):
+            out.append({"code": "no_speed_feedback", "text": (
+                f"the loop lacks wheel-speed feedback ({fmt(k_v, 3)} duty per m/s, under "
+                f"{100 * NEGLIGIBLE:g} % of a working design's): the wheels speed up until the "
+                "motors reach their top speed, a slow runaway (a closed-loop pole at or right "
+                f"of z = 1); add a speed term (the LQR design has {fmt(lqr['v_m_s'], 3)} duty "
+                "per m/s)"),
+                "figures": {"k_v": k_v}})
         k_x = eq["x_m"]
         if k_x is not None and abs(k_x) < NEGLIGIBLE * abs(lqr["x_m"]):
             out.append({"code": "no_position_feedback", "text": (
                 "no feedback from the wheel position: the robot keeps a closed-loop pole at "
                 f"z = 1 and drifts from its spot; add a position term (the LQR design has "
                 f"{fmt(lqr['x_m'], 3)} duty per m) to hold it"), "figures": {"k_x": k_x}})
-        k_v = eq["v_m_s"]
-        if k_v is not None and abs(k_v) < NEGLIGIBLE * abs(lqr["v_m_s"]):
-            out.append({"code": "no_speed_feedback", "text": (
-                "no feedback from the wheel speed: expect a slow runaway; add a speed term "
-                f"(the LQR design has {fmt(lqr['v_m_s'], 3)} duty per m/s)"),
-                "figures": {"k_v": k_v}})
     for key, (label, unit) in STATE_LABELS.items():
         k, ref = eq[key], lqr[key]
         if k is None or abs(k) < NEGLIGIBLE * abs(ref) or k * ref >= 0:

@@ -43,6 +43,7 @@ FIT_TOLERANCE = 1e-4  # relative RMS error below which an ARX counts as a fit
 MAX_ORDER = 12
 MAX_FIR_TAPS = 40
 ZERO = 1e-12  # relative size below which a response counts as none
+EXACT = 1e-10  # relative error of an ARX that reproduces a response to rounding
 STATIC_ZERO = 1e-4  # a static gain below this fraction of the step's peak is none
 
 
@@ -257,7 +258,9 @@ def fit_model(h: np.ndarray, max_order: int = MAX_ORDER,
     """One model for the pulse responses ``h`` (inputs × ticks): (model, kind, error).
 
     FIR when every response is zero (below 1e-12 of its peak) after some tap within
-    MAX_FIR_TAPS; otherwise the common denominator by least squares on
+    MAX_FIR_TAPS, unless an ARX of lower order reproduces them within EXACT (a
+    recursive law whose response dies out geometrically); otherwise the common
+    denominator by least squares on
     ``h_k + Σ a_i h_{k−i} = 0`` (k > n, each input scaled to its peak), numerators from
     the first n + 1 taps, order n the lowest whose relative RMS error is within 10x of
     the best order's and below ``tolerance`` (else the best found; the whole record as
@@ -273,7 +276,34 @@ def fit_model(h: np.ndarray, max_order: int = MAX_ORDER,
     if taps <= MAX_FIR_TAPS and taps < length // 2:
         den = np.zeros(taps)
         den[0] = 1.0
-        return ControllerModel(den=den, num=h[:, :taps].copy()), "fir", 0.0
+        fir = ControllerModel(den=den, num=h[:, :taps].copy())
+        # A response that dies out geometrically (a recursive law) reaches the 1e-12 floor
+        # after many taps; truncated, it leaves that many spurious loop poles near the
+        # origin (|z| ~ 1e-12^(1/taps)), which nudge the real ones. An exact ARX of lower
+        # order is the law itself.
+        exact = _arx_fits(h, used, peaks, min(max_order, taps - 3), stop=EXACT)
+        if exact and exact[-1][1] <= EXACT:
+            return exact[-1][0], "arx", exact[-1][1]
+        return fir, "fir", 0.0
+    fits = _arx_fits(h, used, peaks, max_order)
+    # The error falls sharply at the true order, then stays at the floor set by
+    # rounding and by the script's own slight nonlinearity: the lowest order near it.
+    floor = min(error for _, error in fits)
+    for model, error in fits:
+        if error <= max(10.0 * floor, 1e-12) and error < tolerance:
+            return model, "arx", error
+    model, error = min(fits, key=lambda f: f[1])
+    if error > 1e-3:  # no low order fits: the record itself, truncated
+        den = np.zeros(length)
+        den[0] = 1.0
+        return ControllerModel(den=den, num=h.copy()), "fir", error
+    return model, "arx", error
+
+
+def _arx_fits(h: np.ndarray, used: np.ndarray, peaks: np.ndarray, max_order: int,
+              stop: float = 1e-12) -> list[tuple[ControllerModel, float]]:
+    """ARX fits of orders 1.. up to ``max_order`` (Prony), stopping at one within ``stop``."""
+    inputs, length = h.shape
     scaled = h[used] / peaks[used][:, None]
     fits: list[tuple[ControllerModel, float]] = []
     for n in range(1, max_order + 1):
@@ -287,20 +317,9 @@ def fit_model(h: np.ndarray, max_order: int = MAX_ORDER,
                 num[j, k] = h[j, k] + sum(a[i - 1] * h[j, k - i] for i in range(1, k + 1))
         model = ControllerModel(den=den, num=num)
         fits.append((model, _errors(h, model)))
-        if fits[-1][1] < 1e-12:
+        if fits[-1][1] < stop:
             break  # exact
-    # The error falls sharply at the true order, then stays at the floor set by
-    # rounding and by the script's own slight nonlinearity: the lowest order near it.
-    floor = min(error for _, error in fits)
-    for model, error in fits:
-        if error <= max(10.0 * floor, 1e-12) and error < tolerance:
-            return model, "arx", error
-    model, error = min(fits, key=lambda f: f[1])
-    if error > 1e-3:  # no low order fits: the record itself, truncated
-        den = np.zeros(length)
-        den[0] = 1.0
-        return ControllerModel(den=den, num=h.copy()), "fir", error
-    return model, "arx", error
+    return fits
 
 
 def low_frequency_gains(model: ControllerModel, period: float) -> dict[str, tuple[float, float]]:
