@@ -5,8 +5,9 @@ description, the controller script's text, test files, the base settings) and
 then one small :class:`PointJob` per run. The physics engine is created inside
 :func:`run_point`, in whichever process runs it, and kept there for the
 worker's next runs of the same robot shape (:mod:`sandbox.sweep.worlds`).
-Scripts travel as text so a cluster without a shared filesystem runs the same code: a worker uses the file
-at the original path when its contents match, else a copy in its temp folder.
+Scripts travel as text so a cluster without a shared filesystem runs the same
+code: a worker uses the file at the original path when its contents match,
+else a copy in its temp folder.
 """
 
 from __future__ import annotations
