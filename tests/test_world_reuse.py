@@ -107,6 +107,7 @@ def test_shape_change_builds_a_new_world(shelf_runner):
     from sandbox.sweep import worlds
 
     keeper = worlds.worker_keeper()
+    keeper.close()  # worlds other tests left in this process's keeper
     built, reused = keeper.built, keeper.reused
     rows = [run_point(common, PointJob(i, {}, {"kp": 10.0 + i}, 0)) for i in range(3)]
     assert (keeper.built - built, keeper.reused - reused) == (1, 2)
