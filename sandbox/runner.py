@@ -460,9 +460,12 @@ def run_record(spec: RobotSpec, settings: RunSettings, rate_hz: float,
 
 def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
         ground: Ground | None = None, timeline: Any = None,
-        extra_record: dict | None = None) -> RunResult:
-    """Run a controller on a robot; write the run folder when ``folder`` is given."""
-    sim = Simulation(spec, settings, ground=ground, timeline=timeline)
+        extra_record: dict | None = None,
+        world_factory: Callable[..., Any] = World) -> RunResult:
+    """Run a controller on a robot; write the run folder when ``folder`` is given.
+    ``world_factory``: where the world comes from (a sweep's worker reuses its worlds)."""
+    sim = Simulation(spec, settings, ground=ground, timeline=timeline,
+                     world_factory=world_factory)
     if folder is not None:
         from .urdf import robot_urdf
         from .world import ground_record

@@ -293,6 +293,19 @@ class _HeldTorques:
         return self.torques
 
 
+def shape_key(spec: RobotSpec, physics_dt: float = 1e-3, tilt: float = 0.0,
+              ground: Ground | None = None, gravity: float = 9.80665,
+              rotor_coupling: bool = True) -> tuple:
+    """What a settled world's engine state depends on: two runs with equal keys can share
+    one world (saved and restored between them); anything else of the robot (motors'
+    electrics, battery, sensors, controller) lives on the Python side."""
+    backlash = float(getattr(spec.motors, "backlash", 0.0))
+    ground = ground or Ground(friction=spec.wheels.friction,
+                              rolling_resistance=spec.wheels.rolling_resistance)
+    urdf = robot_urdf(spec, with_reflected_inertia=True, reflected_on_wheels=backlash == 0.0)
+    return (urdf, float(physics_dt), float(tilt), ground, float(gravity), bool(rotor_coupling))
+
+
 class World:
     """A pybullet world holding one robot on the ground, stepped at a fixed ``physics_dt``."""
 
@@ -344,6 +357,17 @@ class World:
         # (inertial frame -> body frame) = transpose of the inertial rotation, row-major
         self._body_from_inertial = tuple(self._inertial_rotation.T.flatten().tolist())
         self._identity_inertial = bool(np.allclose(self._inertial_rotation, np.eye(3)))
+        self._rotor_coupling = rotor_coupling
+        self._start_run_state(spec)
+        self._settle(tilt)
+
+    def _start_run_state(self, spec: RobotSpec) -> None:
+        """The Python side of a world at the start of a run: what comes from ``spec``
+        besides the shape in the engine, and no state carried from a run before."""
+        self.spec = spec
+        self.backlash = float(getattr(spec.motors, "backlash", 0.0))
+        self._gearbox = None
+        rotor_coupling = self._rotor_coupling
         # Reflected rotor inertia: the part on each coordinate alone is in the URDF;
         # the cross term couples wheel and body and is applied here every step.
         self.reflected_inertia = spec.figures.reflected_inertia if rotor_coupling else 0.0
@@ -373,7 +397,6 @@ class World:
                            pb.stepSimulation, pb.TORQUE_CONTROL, pb.WORLD_FRAME)
         self._push: list | None = None  # [steps left, force (world), point (body frame)]
         self.payload_ids: list[int] = []
-        self._settle(tilt)
 
     def _settle(self, tilt: float, steps: int = 100) -> None:
         """Let the wheels sink to their resting contact depth while the body is held still.
@@ -505,9 +528,45 @@ class World:
         return [names.index(n) for n in WHEEL_JOINTS]
 
     def close(self) -> None:
-        if self.client is not None:
+        if self.client is not None and not self.hold_open:
             pb.disconnect(physicsClientId=self.client)
             self.client = None
+
+    # ------------------------------------------------------------- reuse between runs
+    # A kept world (sandbox.sweep.worlds) stays connected when a run closes it.
+    hold_open = False
+
+    def save_settled(self) -> None:
+        """Keep the engine's state now (just built and settled) for :meth:`restore_settled`,
+        with what a saved state leaves out: the floor's contact settings."""
+        c = self.client
+        self._settled_state = pb.saveState(physicsClientId=c)
+        self._settled_floors = [pb.getDynamicsInfo(f, -1, physicsClientId=c) for f in
+                                self.floor_ids]
+
+    def restore_settled(self, spec: RobotSpec) -> None:
+        """Put the world back as :meth:`save_settled` found it, for a new run of ``spec``
+        (whose URDF, ground, tilt and physics step must be the saved world's: see
+        :func:`shape_key`). Payloads and their joints go; friction the run changed
+        comes back; the Python side starts afresh. Found by comparing trace bytes with
+        fresh worlds: restoreState brings back poses, velocities and contacts, not
+        bodies added since, user constraints or changeDynamics settings."""
+        c = self.client
+        while pb.getNumConstraints(physicsClientId=c):
+            pb.removeConstraint(pb.getConstraintUniqueId(0, physicsClientId=c),
+                                physicsClientId=c)
+        for payload in self.payload_ids:
+            pb.removeBody(payload, physicsClientId=c)
+        pb.restoreState(self._settled_state, physicsClientId=c)
+        for floor, info in zip(self.floor_ids, self._settled_floors):
+            pb.changeDynamics(floor, -1, lateralFriction=info[1], rollingFriction=info[6],
+                              spinningFriction=info[7], physicsClientId=c)
+        self._start_run_state(spec)
+
+    def release(self) -> None:
+        """Disconnect a kept world (its runs' ``close`` left it open)."""
+        self.hold_open = False
+        self.close()
 
     def __enter__(self) -> World:
         return self

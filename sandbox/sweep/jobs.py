@@ -3,9 +3,11 @@
 A worker gets the parts every run shares once (:class:`RunCommon`: the robot
 description, the controller script's text, test files, the base settings) and
 then one small :class:`PointJob` per run. The physics engine is created inside
-:func:`run_point`, in whichever process runs it. Scripts travel as text so a
-cluster without a shared filesystem runs the same code: a worker uses the file
-at the original path when its contents match, else a copy in its temp folder.
+:func:`run_point`, in whichever process runs it, and kept there for the
+worker's next runs of the same robot shape (:mod:`sandbox.sweep.worlds`).
+Scripts travel as text so a cluster without a shared filesystem runs the same
+code: a worker uses the file at the original path when its contents match,
+else a copy in its temp folder.
 """
 
 from __future__ import annotations
@@ -103,10 +105,16 @@ def controller_spec(common: RunCommon) -> str:
     return f"{local}:{common.class_name}" if common.class_name else local
 
 
-def run_point(common: RunCommon, job: PointJob) -> dict[str, Any]:
-    """Run one point (in a worker) and return its row: status, figures, checks, cost terms."""
+def run_point(common: RunCommon, job: PointJob, reuse_worlds: bool = True) -> dict[str, Any]:
+    """Run one point (in a worker) and return its row: status, figures, checks, cost terms.
+
+    ``reuse_worlds``: take the world from this process's keeper (a settled world of
+    the same shape restored, else a new one kept for later runs); False builds a
+    fresh world and closes it after the run. The rows are the same either way.
+    """
     from ..robot import robot_from_dict
     from ..session import run_once
+    from .worlds import worker_keeper
 
     robot, settings = common.robot, common.settings
     if job.stress is not None:
@@ -126,7 +134,7 @@ def run_point(common: RunCommon, job: PointJob) -> dict[str, Any]:
         plan = resolve_test(test, spec)
     started = time.perf_counter()
     result = run_once(spec, settings, test=test, duration_given=common.duration_given,
-                      write=False)
+                      write=False, world_factory=worker_keeper() if reuse_worlds else None)
     wall = time.perf_counter() - started
     planned = settings.duration if plan is None or common.duration_given else plan.duration
     return outcome_row(job, result.status, result.message, result.summary, result.trace,
