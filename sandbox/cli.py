@@ -111,6 +111,9 @@ WorkersOption = Annotated[int | None, typer.Option(
     "--workers", help="Parallel processes (default: all cores).")]
 CAMERA_HELP = ("Video camera: side (forward to the right), front, three-quarter, or follow "
                "(behind the robot, turning with it).")
+IsolateOption = Annotated[bool, typer.Option(
+    "--isolate/--no-isolate", help="Each controller in a process of its own (readings in, "
+    "duties out, stopped after a second per call); --no-isolate runs it in the worker.")]
 RateOption = Annotated[float | None, typer.Option(
     "--rate", help="Controller rate, Hz (default: the class's rate_hz, else 200).")]
 
@@ -414,8 +417,12 @@ def run(
     _check_camera(camera)
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
-    if not (math.isfinite(step_timeout) and 0.001 <= step_timeout <= 60.0):
-        raise BadInput(f"--step-timeout must be from 0.001 to 60 s, got {step_timeout:g}")
+    from . import bounds
+
+    bounds.STEP_TIMEOUT.check(step_timeout)
+    bounds.LATENCY.check(latency)
+    bounds.FALL_LIMIT.check(fall_limit)
+    bounds.check_run(settings.duration, physics_step)
     settings = replace(settings, physics_dt=physics_step / 1000.0, latency=latency / 1000.0,
                        fall_limit=math.radians(fall_limit), isolate=isolate,
                        step_timeout=step_timeout)
@@ -431,6 +438,13 @@ def run(
     raise typer.Exit(_exit_code(result))
 
 
+def _check_workers(workers: int | None) -> None:
+    from . import bounds
+
+    if workers is not None:
+        bounds.WORKERS.check(workers)
+
+
 def _check_camera(camera: str) -> None:
     from .render.frames import CAMERAS
 
@@ -440,8 +454,14 @@ def _check_camera(camera: str) -> None:
 
 def _settings_from(controller: str, config: dict, duration: float | None, tilt: float,
                    seed: int, rate: float | None):
+    from . import bounds
     from .runner import RunSettings
 
+    if duration is not None:
+        bounds.DURATION.check(duration)
+    bounds.TILT.check(tilt)
+    if rate is not None:
+        bounds.RATE.check(rate)
     return RunSettings(controller=controller, config=config,
                        duration=10.0 if duration is None else duration,
                        tilt=math.radians(tilt), seed=seed, rate_hz=rate)
@@ -471,6 +491,7 @@ def suite(
     config_file: ConfigOption = None,
     rate: RateOption = None,
     workers: WorkersOption = None,
+    isolate: IsolateOption = True,
     out: Annotated[Path | None, typer.Option(
         "--out", help="Suite folder (default runs/<robot>-<controller>-suite-<time>/).")] = None,
     video: Annotated[bool, typer.Option("--video", help="Render a video of every test.")] = False,
@@ -479,6 +500,7 @@ def suite(
     ] = False,
 ) -> None:
     """Run every built-in disturbance test; a pass/fail table, suite.json and report.html."""
+    _check_workers(workers)
     from .control import load_controller_class
     from .events import BUILTIN_NAMES
     from .record import default_run_dir
@@ -486,6 +508,7 @@ def suite(
 
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, None, 0.0, seed,
                                          rate)
+    settings = replace(settings, isolate=isolate)
     load_controller_class(controller)  # a broken script stops here, before any worker starts
     label = _controller_label(controller)
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
@@ -522,13 +545,14 @@ def render(
     camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
 ) -> None:
     """Render video.mp4 of a recorded run by replaying its trace."""
+    from . import bounds
+
     _check_camera(camera)
+    bounds.FPS.check(fps)
+    width, height = bounds.frame_size(size)
+    _check_workers(workers)
     if not (run_dir / "trace.csv").is_file():
         raise BadInput(f"{run_dir}: not a run folder (no trace.csv)")
-    try:
-        width, height = (int(v) for v in size.lower().split("x"))
-    except ValueError:
-        raise BadInput(f"--size {size!r}: expected WIDTHxHEIGHT, e.g. 640x480") from None
     path = _render_with_bar(run_dir, fps, (width, height), workers, camera)
     typer.echo(f"wrote {path}")
 
@@ -672,8 +696,9 @@ def analyze(
     robot_sets, config_sets = _split_sets(set_)
     if script is None and (config_sets or config_file is not None or plot is not None):
         raise BadInput("--config, --set config.KEY and --plot need --controller FILE.py")
-    if latency < 0:
-        raise BadInput(f"--latency must be zero or more ms, got {latency:g}")
+    from . import bounds
+
+    bounds.LATENCY.check(latency)
     spec = load_robot(robot, robot_sets)
     _print_warnings(spec, robot)
     probed = None
@@ -785,16 +810,24 @@ def sweep(
     config_file: ConfigOption = None,
     rate: RateOption = None,
     workers: WorkersOption = None,
+    isolate: IsolateOption = True,
     cluster: ClusterOption = None,
     out: Annotated[Path | None, typer.Option(
         "--out", help="Sweep folder; rerunning with the same folder skips finished points.")
     ] = None,
+    yes: Annotated[bool, typer.Option(
+        "--yes", help="Run a sweep of more than 2,000 runs without asking.")] = False,
 ) -> None:
     """Many runs over a grid of values and/or robots drawn within part tolerances."""
+    from . import bounds
     from .sweep import sweep_command
+
+    _check_workers(workers)
+    bounds.SAMPLES.check(samples)
 
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, tilt,
                                          seed, rate)
+    settings = replace(settings, isolate=isolate)
     if not vary and not samples:
         raise BadInput("give at least one --vary KEY=A,B,C or KEY=START..STOP,n=N, or "
                        "--samples N with --spread")
@@ -804,7 +837,7 @@ def sweep(
         report = sweep_command(spec, settings, vary=vary or [], spread=spread or [],
                                samples=samples, test=test, duration_given=duration is not None,
                                workers=workers, cluster=cluster, out=out, figure=figure,
-                               progress=progress)
+                               progress=progress, confirmed=yes)
     finally:
         progress.close()
     typer.echo(report.text())
@@ -845,14 +878,20 @@ def tune(
     config_file: ConfigOption = None,
     rate: RateOption = None,
     workers: WorkersOption = None,
+    isolate: IsolateOption = True,
     cluster: ClusterOption = None,
     out: Annotated[Path | None, typer.Option("--out", help="Tuning folder.")] = None,
 ) -> None:
     """Search controller gains that keep the robot up and steady through the tests."""
+    from . import bounds
     from .sweep import tune_command
+
+    _check_workers(workers)
+    bounds.EVALUATIONS.check(max_evaluations)
 
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, duration, 0.0,
                                          seed, rate)
+    settings = replace(settings, isolate=isolate)
     keys = [k.strip() for k in gains.split(",") if k.strip()]
     progress = _ProgressLine("evaluations")
     try:
@@ -887,15 +926,20 @@ def margins(
     config_file: ConfigOption = None,
     rate: RateOption = None,
     workers: WorkersOption = None,
+    isolate: IsolateOption = True,
     cluster: ClusterOption = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print JSON for programs.")] = False,
 ) -> None:
     """How much of each imperfection the controller survives: bisection on full runs."""
+    from . import bounds
     from .margins import STRESS_NAMES, find_margins, margins_table
+
+    _check_workers(workers)
+    bounds.LATENCY.check(latency)
 
     spec, settings = _robot_and_settings(robot, controller, set_, config_file, None, 0.0,
                                          seed, rate)
-    settings = replace(settings, latency=latency / 1000.0)
+    settings = replace(settings, latency=latency / 1000.0, isolate=isolate)
     progress = _ProgressLine("runs")
     try:
         result = find_margins(spec, settings, test=test, stresses=stress or STRESS_NAMES,

@@ -522,6 +522,8 @@ def make_controller(cls: type, config: dict | None, robot: RobotFacts) -> Any:
 def failure_text(call: str, err: BaseException) -> str:
     """``"step() raised ValueError: text"``, ``"step() called sys.exit(0)"`` for ``call``
     ``"step()"``; never raises."""
+    if hasattr(err, "os_exit_status"):  # sandbox.interrupts.ProcessExit
+        return f"{call} called os._exit({_safe_text(err.os_exit_status, repr)})"
     if isinstance(err, SystemExit):
         return f"{call} called sys.exit({_safe_text(err.code, repr)})"
     text = _safe_text(err, str)

@@ -174,7 +174,8 @@ class TestFile(_Section):
     tilt: Angle = 0.0
     battery_charge: Fraction | None = Field(default=None, ge=0, le=1)
     ground: GroundSpec = GroundSpec()
-    events: list[EventSpec] = []
+    # a test is a handful of disturbances; ten thousand is far past any real one
+    events: list[EventSpec] = Field(default=[], max_length=10_000)
     criteria: Criteria = Criteria()
 
 

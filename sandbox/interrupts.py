@@ -11,6 +11,7 @@ trace-writing process) and raises it at the end, so no message is ever torn.
 
 from __future__ import annotations
 
+import os
 import signal
 import threading
 from collections.abc import Iterator
@@ -80,3 +81,32 @@ def deferred() -> Iterator[None]:
             previous(signal.SIGINT, None)
         elif previous == signal.SIG_DFL:
             raise KeyboardInterrupt
+
+
+class ProcessExit(SystemExit):
+    """``os._exit(status)`` called by a controller run in this process."""
+
+    def __init__(self, status: int) -> None:
+        super().__init__(status)
+        self.os_exit_status = status
+
+
+@contextmanager
+def exits_raise() -> Iterator[None]:
+    """While the block runs, ``os._exit`` called in this process raises ``SystemExit``
+    instead of ending the process on the spot (no summary, exit 0): a controller script
+    run in-process that calls it ends as a controller error, its trace kept. A forked
+    child (another process id) still leaves at once, as it must."""
+    real_exit = os._exit
+    owner = os.getpid()
+
+    def _exit(status: int) -> None:
+        if os.getpid() != owner:
+            real_exit(status)
+        raise ProcessExit(status)
+
+    os._exit = _exit
+    try:
+        yield
+    finally:
+        os._exit = real_exit

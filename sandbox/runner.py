@@ -40,7 +40,7 @@ from .control import (
     unread_keys,
 )
 from .imu import Encoders, Imu
-from .interrupts import is_user_interrupt
+from .interrupts import exits_raise, is_user_interrupt
 from .isolate import IsolatedController, build_controller
 from .metrics import run_figures
 from .rates import nearby_rates
@@ -149,10 +149,12 @@ class Simulation:
         except OSError:
             world.close()
             raise
-        loop = _Loop(self, world, writer)
+        with exits_raise():
+            loop = _Loop(self, world, writer)
         wall_start = time.perf_counter()
         try:
-            loop.run()
+            with exits_raise():
+                loop.run()
         except ControllerError as err:
             loop.status, loop.message = STATUS_CONTROLLER_ERROR, str(err)
             if folder is not None:

@@ -243,8 +243,8 @@ def test_load_exception_at_import_names_line_and_type(tmp_path):
         load_controller_class(str(path))
     message = str(caught.value)
     assert "raises.py, line 3" in message and "ZeroDivisionError" in message
-    assert not any(name.startswith("upright_controller_") and "raises" in str(
-        getattr(module, "__file__", "")) for name, module in sys.modules.items())
+    assert not any(name.startswith("upright_controller_") and str(
+        getattr(module, "__file__", "")) == str(path) for name, module in sys.modules.items())
 
 
 def test_load_no_such_class_lists_the_classes_there(tmp_path):

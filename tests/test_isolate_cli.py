@@ -44,4 +44,4 @@ def test_step_timeout_out_of_range_is_bad_input() -> None:
         "run", SHELF_RUNNER, str(ROOT / "controllers" / "cascade.py"), "--isolate",
         "--step-timeout", "nan"])
     assert result.exit_code == 2
-    assert "--step-timeout must be from 0.001 to 60 s" in result.output
+    assert "--step-timeout must be a number from 0.001 to 60 s" in result.output

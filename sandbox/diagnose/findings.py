@@ -37,6 +37,7 @@ RUNAWAY_RATIO = 0.2  # growth below this fraction of the fall rate: a runaway, n
 RUNAWAY_MIN_DURATION = 1.0  # s of steady speed growth
 RUNAWAY_MIN_SPEED = 0.3  # fraction of the top speed the speed must reach
 RUNAWAY_STEADY = 0.8  # fraction of ticks in which |speed| (smoothed) went up
+ERROR_WORDS = " error from the setpoint"
 RUNAWAY_MIN_TRAVEL = 20.0  # wheel radii of steady travel that count as position runaway
 TOP_SPEED_FRACTION = 0.9  # wheel rate / back-EMF limit counted as "at top speed"
 DUTY_FULL = 0.99  # |duty| within 1 % of full counts as saturated (a steering term trims a side)
@@ -260,6 +261,11 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
     calm = np.nonzero(np.abs(pitch - reference) < FALL_ONSET_TILT)[0]
     upright = int(calm[-1]) + 1 if calm.size else 0
     speed = trace["speed_m_s"][window][:upright]
+    # where a test commands a speed (drive), what runs away is the speed's error from it
+    setpoint = trace.get("setpoint_speed_m_s")
+    commanded = setpoint is not None and bool(np.any(setpoint[window] != 0.0))
+    if commanded:
+        speed = speed - setpoint[window][:upright]
     rise = steady_growth(t[:upright], speed)
     top = float(np.median(speed_limit(trace, spec)[window])) * spec.wheels.radius
     if rise is not None:
@@ -269,7 +275,8 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
             x = trace["x_m"][window][:upright]
             travel = float(x[-1] - x[0])
             out.append(finding(
-                "runaway", f"runaway travel: the speed grew steadily from {rise['start_s']:.2f} "
+                "runaway", f"runaway travel: the speed{ERROR_WORDS if commanded else ''} "
+                f"grew steadily from {rise['start_s']:.2f} "
                 f"to {rise['end_s']:.2f} s, to {reached:.2f} m/s ({100 * reached / top:.0f} % "
                 f"of top speed), {travel:+.2f} m travelled: nothing feeds back wheel speed or "
                 "position (or with the wrong sign); add wheel-speed feedback from the encoders",
@@ -277,7 +284,7 @@ def _loop(trace, spec, start, settings, rate_hz, drift_limit: float | None = Non
                 end_s=rise["end_s"], speed_m_s=reached, top_speed_m_s=top, travel_m=travel,
                 tilt_growth_rate_1_s=None if grow is None else grow["growth_rate_1_s"]))
             return out
-    if upright < 3:
+    if upright < 3 or commanded:  # travel is what a commanded speed asks for
         return out
     x = trace["x_m"][window][:upright] - trace["x_m"][window][0]
     drift = steady_growth(t[:upright], x)

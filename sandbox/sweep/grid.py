@@ -344,16 +344,26 @@ def sweep_command(spec: RobotSpec, settings: RunSettings, *, vary: Sequence[str]
                   duration_given: bool = False, workers: int | None = None,
                   cluster: str | None = None, out: Path | None = None,
                   figure: str = "max_abs_pitch_deg", progress: Progress | None = None,
-                  runs_root: Path = Path("runs")) -> SweepReport:
+                  runs_root: Path = Path("runs"), confirmed: bool = True) -> SweepReport:
     """``upright sweep``: parse ``--vary``/``--spread`` strings and run the sweep.
+
+    A sweep beyond :data:`sandbox.bounds.MAX_SWEEP_RUNS` runs is refused, and one
+    beyond :data:`sandbox.bounds.ASK_ABOVE_RUNS` unless ``confirmed`` (``--yes``),
+    counted before any point is built.
 
     Default folder: ``runs/sweep-<robot>-<controller>-<test>-<time>/``. Raises
     SweepError (a ValueError) for unusable input.
     """
+    import math
+    import os
+
+    from .. import bounds
     from ..record import default_run_dir
 
     axes = [parse_vary(v) for v in vary]
     spreads = [parse_spread(s) for s in spread]
+    runs = math.prod(len(a.values) for a in axes) * max(samples, 1)
+    bounds.sweep_size(runs, settings.duration, workers or os.cpu_count() or 1, confirmed)
     check_config_keys(spec, settings, {a.key.removeprefix("config."): a.values[0]
                                        for a in axes if a.key.startswith("config.")}, "sweep")
     folder = out or default_run_dir(runs_root, f"sweep-{spec.name}",
