@@ -359,6 +359,16 @@ def _child_main(requests: Any, replies: Any, script: str, config: dict, robot: R
     step = controller.step
     reading = Reading(dt=1.0 / robot.rate_hz)
     unpack, size = REQUEST.unpack, REQUEST.size
+    with interrupts.exits_raise():
+        _answer(source, out, step, reset, reading, unpack, size, cls)
+    os._exit(0)  # past any thread or atexit handler the script left behind
+
+
+def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpack: Any,
+            size: int, cls: type) -> None:
+    """Answer requests until the input ends. A copy of this process the script forked
+    leaves at once, silently: only the process the parent started may answer."""
+    me = os.getpid()
     while True:
         try:
             request = _read_exact(source, size)
@@ -387,16 +397,19 @@ def _child_main(requests: Any, replies: Any, script: str, config: dict, robot: R
             else:
                 break
         except BaseException as err:  # noqa: BLE001
+            if os.getpid() != me:
+                os._exit(0)
             call = "step()" if kind == b"S" else "reset()"
             reading.take_logs()
             _send_error(out, err if isinstance(err, ControllerError)
                         else ControllerError(_with_place(failure_text(call, err), err, cls)))
             continue
+        if os.getpid() != me:
+            os._exit(0)
         try:
             _send(out, b"D", body)
         except OSError:
             break
-    os._exit(0)  # past any thread or atexit handler the script left behind
 
 
 def _with_place(text: str, err: BaseException, cls: type) -> str:

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import os
 import platform
 import time
 import traceback
@@ -246,6 +247,7 @@ class _Loop:
         self.motor_encoders = self.backlash and self.encoders.shaft == "motor"
         self.status, self.message, self.fell_at = STATUS_COMPLETED, "", None
         self.clipped = 0
+        self.pid = os.getpid()  # the run's process (a script may fork)
         self.ticks_run = 0
         self.step = 0
         self.x = 0.0  # distance travelled along the heading (m), trapezoidal from the speed
@@ -335,9 +337,13 @@ class _Loop:
         try:
             out = self.controller.step(r)
         except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
+            if os.getpid() != self.pid:
+                os._exit(0)
             if is_user_interrupt(err):
                 raise
             raise _failure(err, "step", t, self.sim.controller_class) from err
+        if os.getpid() != self.pid:  # a copy the script forked: only the run may go on
+            os._exit(0)
         try:
             left, right, was_clipped = check_duties(out)
         except Exception as err:  # a returned object whose iteration raises, too

@@ -1,0 +1,221 @@
+"""The hostile-input suite: arguments and controller scripts that once hung, traced back,
+exited 0 on a failure or lost what was recorded, each with the exit code and message it
+must give now and what must survive.
+
+Hostile files (alias bombs, exponent towers, huge numbers, duplicate keys, binary files)
+are in tests/test_file_checks.py; an endless step under ``--isolate`` in
+tests/test_isolate_cli.py.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import os
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+from typer.testing import CliRunner
+
+from sandbox.cli import app
+
+ROOT = Path(__file__).resolve().parents[1]
+ROBOT = str(ROOT / "robots" / "shelf-runner.yaml")
+CASCADE = str(ROOT / "controllers" / "cascade.py")
+GRID = "config.tilt_kp=1..2,n=10000"
+
+# (arguments after the command, message fragment): each is refused with exit 2 at once
+BAD_ARGUMENTS = {
+    "duration-inf": (["run", ROBOT, CASCADE, "--duration", "inf"], "--duration must be"),
+    "duration-nan": (["run", ROBOT, CASCADE, "--duration", "nan"], "--duration must be"),
+    "duration-huge": (["run", ROBOT, CASCADE, "--duration", "1e12"], "from 0.001 to 3600 s"),
+    "duration-negative": (["run", ROBOT, CASCADE, "--duration", "-1"], "--duration must be"),
+    "physics-step-tiny": (["run", ROBOT, CASCADE, "--physics-step", "1e-7"],
+                          "--physics-step must be"),
+    "too-many-steps": (["run", ROBOT, CASCADE, "--duration", "3000", "--physics-step", "0.1"],
+                       "physics steps; at most"),
+    "latency-nan": (["run", ROBOT, CASCADE, "--latency", "nan"], "--latency must be"),
+    "fall-limit-nan": (["run", ROBOT, CASCADE, "--fall-limit", "nan"], "--fall-limit must be"),
+    "tilt-nan": (["run", ROBOT, CASCADE, "--tilt", "nan"], "--tilt must be"),
+    "rate-huge": (["run", ROBOT, CASCADE, "--rate", "1e9"], "--rate must be"),
+    "step-timeout-nan": (["run", ROBOT, CASCADE, "--step-timeout", "nan"],
+                         "--step-timeout must be"),
+    "render-fps": (["render", "nowhere", "--fps", "1e9"], "--fps must be"),
+    "render-size": (["render", "nowhere", "--size", "65536x65536"], "--size must be"),
+    "render-size-digits": (["render", "nowhere", "--size", "9" * 5000 + "x16"],
+                           "expected WIDTHxHEIGHT"),
+    "grid-huge": (["sweep", ROBOT, CASCADE, "--vary", GRID, "--vary",
+                   GRID.replace("tilt_kp", "tilt_kd"), "--vary",
+                   GRID.replace("tilt_kp", "speed_kp")], "runs; at most 100,000"),
+    "samples-huge": (["sweep", ROBOT, CASCADE, "--samples", "100000000", "--spread",
+                      "wheels.radius=±1%"], "--samples must be"),
+    "sweep-unconfirmed": (["sweep", ROBOT, CASCADE, "--samples", "3000", "--spread",
+                           "wheels.radius=±1%"], "add --yes"),
+    "workers-zero": (["sweep", ROBOT, CASCADE, "--samples", "2", "--workers", "0"],
+                     "--workers must be"),
+    "tune-evaluations": (["tune", ROBOT, CASCADE, "--gains", "config.tilt_kp",
+                          "--max-evaluations", "0"], "--max-evaluations must be"),
+    "margins-latency": (["margins", ROBOT, CASCADE, "--latency", "inf"], "--latency must be"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_ARGUMENTS))
+def test_bad_argument_is_refused_in_one_line(case: str, tmp_path: Path) -> None:
+    """Exit 2, the option named with its range, one line, no traceback, nothing run."""
+    args, fragment = BAD_ARGUMENTS[case]
+    result = CliRunner().invoke(app, [*args, "--out", str(tmp_path / "out")]
+                                if args[0] in ("run", "sweep") else args)
+    assert result.exit_code == 2, (case, result.output)
+    assert fragment in result.output, (case, result.output)
+    assert "Traceback" not in result.output
+    errors = [line for line in result.output.splitlines() if line.startswith("error")]
+    assert len(errors) == 1, result.output  # (a sweep shows its axes first)
+    assert not (tmp_path / "out" / "trace.csv").exists()
+
+
+def _script(tmp_path: Path, name: str, body: str) -> Path:
+    path = tmp_path / f"{name}.py"
+    path.write_text(textwrap.dedent(body))
+    return path
+
+
+def _step_does(line: str, imports: str = "") -> str:
+    return f"""
+        {imports}
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                pass
+
+            def step(self, r):
+                if r.t >= 0.1:
+                    {line}
+                return 0.0, 0.0
+    """
+
+
+class Quit(BaseException):
+    pass
+
+
+# (script body, message fragment): each must end the run as a controller error
+ENDINGS = {
+    "sys-exit-0": (_step_does("sys.exit(0)", "import sys"), "called sys.exit(0)"),
+    "os-exit-0": (_step_does("os._exit(0)", "import os"), "os._exit(0)"),
+    "base-exception": (_step_does("raise Quit()", "class Quit(BaseException): pass"),
+                       "raised Quit"),
+    "keyboard-interrupt-raised": (_step_does("raise KeyboardInterrupt"),
+                                  "raised KeyboardInterrupt"),
+    "huge-integer-duty": (_step_does("return 10 ** 400, 0.0"), "step"),
+}
+
+
+def _upright(*args: str, timeout: float = 120.0) -> subprocess.CompletedProcess:
+    """The command line as a whole process (an os._exit ends only that)."""
+    return subprocess.run([sys.executable, "-m", "sandbox.cli", *args], cwd=ROOT,
+                          capture_output=True, text=True, timeout=timeout,
+                          env={**os.environ, "PYTHONPATH": str(ROOT)})
+
+
+def _rows(folder: Path) -> list[list[str]]:
+    with (folder / "trace.csv").open(newline="") as handle:
+        return list(csv.reader(handle))[1:]
+
+
+@pytest.mark.parametrize("isolate", [False, True], ids=["in-process", "isolated"])
+@pytest.mark.parametrize("case", sorted(ENDINGS))
+def test_every_way_a_controller_ends_is_a_controller_error(case: str, isolate: bool,
+                                                           tmp_path: Path) -> None:
+    """Exit 3, status controller_error, the cause named, summary and trace kept (the
+    ticks before the ending all recorded)."""
+    body, fragment = ENDINGS[case]
+    script = _script(tmp_path, case.replace("-", "_"), body)
+    out = tmp_path / "run"
+    done = _upright("run", ROBOT, str(script), "--duration", "0.5", "--out", str(out),
+                    "--no-plots", *(["--isolate"] if isolate else []))
+    assert done.returncode == 3, (done.stdout, done.stderr)
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["status"] == "controller_error"
+    assert fragment in done.stdout + done.stderr, (done.stdout, done.stderr)
+    assert "Traceback" not in done.stdout + done.stderr
+    assert len(_rows(out)) >= 20  # the ticks before 0.1 s at 200 Hz
+
+
+def test_unseeded_random_in_a_controller_is_still_reproducible(tmp_path: Path) -> None:
+    """Python's `random` and numpy's global generator are seeded from the run's seed
+    before the script is built: the same seed gives the same trace bytes."""
+    script = _script(tmp_path, "noisy", """
+        import random
+        import numpy as np
+
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                pass
+
+            def step(self, r):
+                return 0.01 * random.random(), 0.01 * float(np.random.rand())
+    """)
+    traces = []
+    for name in ("a", "b"):
+        out = tmp_path / name
+        result = CliRunner().invoke(app, ["run", ROBOT, str(script), "--duration", "0.3",
+                                          "--out", str(out), "--no-plots"])
+        assert result.exit_code in (0, 1), result.output
+        traces.append((out / "trace.csv").read_bytes())
+    assert traces[0] == traces[1]
+
+
+def test_a_thread_left_running_does_not_keep_upright_alive(tmp_path: Path) -> None:
+    """A controller that starts a non-daemon thread that never ends: the run still ends
+    with its exit code, well within the time limit."""
+    script = _script(tmp_path, "lingers", """
+        import threading
+        import time
+
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                threading.Thread(target=lambda: time.sleep(3600)).start()
+
+            def step(self, r):
+                return 0.0, 0.0
+    """)
+    done = _upright("run", ROBOT, str(script), "--duration", "0.3", "--out",
+                    str(tmp_path / "run"), "--no-plots", "--isolate", timeout=60)
+    assert done.returncode in (0, 1), done.stderr
+    assert (tmp_path / "run" / "summary.json").is_file()
+
+
+@pytest.mark.parametrize("isolate", [False, True], ids=["in-process", "isolated"])
+def test_a_forking_controller_does_not_double_the_trace(isolate: bool, tmp_path: Path) -> None:
+    """A script that forks in step: the child leaves at once and writes nothing into the
+    trace; one row per tick (0.3 s at 200 Hz: 61 rows, t = 0 included)."""
+    script = _script(tmp_path, "forks", """
+        import os
+
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                self.forked = False
+
+            def step(self, r):
+                if not self.forked:
+                    self.forked = True
+                    if os.fork() == 0:
+                        return 0.0, 0.0  # the child goes on as if it were the run
+                return 0.0, 0.0
+    """)
+    out = tmp_path / "run"
+    done = _upright("run", ROBOT, str(script), "--duration", "0.3", "--out", str(out),
+                    "--no-plots", *(["--isolate"] if isolate else []), timeout=60)
+    assert done.returncode in (0, 1), done.stderr
+    times = [row[0] for row in _rows(out)]
+    assert len(times) == len(set(times)) == 61
