@@ -193,7 +193,7 @@ def _inspect_text(spec, data: dict[str, Any]) -> str:
         ("top speed (no load)", fmt(f.top_speed), "m/s"),
         ("steepest tilt both motors can hold", fmt(math.degrees(f.steepest_hold_tilt)), "deg"),
     ]
-    rows += _real_part_rows(f)
+    rows += _real_part_rows(f, spec)
     out = [table(rows, ("figure", "value", "unit")), "", "Description in force (SI units):"]
     flat = _flatten(data["description"])
     out.append(table([(k, v, _unit_of(k)) for k, v in flat], ("key", "value", "unit")))
@@ -219,7 +219,7 @@ def _print_warnings(spec, source: Path) -> None:
     """Plausibility warnings on stderr, one line each; the command goes on."""
     for line in spec.warnings:
         typer.echo(f"warning: {source}: {line}", err=True)
-def _real_part_rows(f) -> list[tuple[str, str, str]]:
+def _real_part_rows(f, spec) -> list[tuple[str, str, str]]:
     """Rows for the imperfect parts in force: measured body figures, the figures of each
     side where the two differ, the IMU filters' group delay."""
     rows = []
@@ -244,7 +244,18 @@ def _real_part_rows(f) -> list[tuple[str, str, str]]:
     for label, delay in (("gyro", f.gyro_group_delay), ("accelerometer", f.accel_group_delay)):
         if delay is not None:
             rows.append((f"{label} filter group delay (low frequency)", fmt(delay * 1000), "ms"))
-    return rows
+    return rows + _imperfection_rows(spec)
+
+
+def _imperfection_rows(spec) -> list[tuple[str, str, str]]:
+    """The imperfections in force (play, static friction, IMU filters, mounting, scale
+    errors, jitter, compute time; the per-side rows are above), or 'ideal parts'."""
+    from .facts import imperfections
+
+    rows = [tuple(r) for r in imperfections(spec)
+            if not r[0].startswith(("motors.left", "motors.right", "wheels.left", "wheels.right"))]
+    return [("parts", "ideal parts (no imperfections in the file)", "")] if not (
+        rows or spec.figures.sides_differ) else rows
 
 
 def _flatten(data: Any, prefix: str = "") -> list[tuple[str, str]]:
@@ -312,7 +323,7 @@ def _controller_label(controller: str) -> str:
     return name + ("-" + controller.split(".py:")[1] if ".py:" in controller else "")
 
 
-def _print_run(result, folder: Path | None) -> None:
+def _print_run(result, folder: Path | None, parts: str | None = None) -> None:
     s = result.summary
     for item in s.get("unread_config_keys") or ():
         typer.echo(f"warning: {item['text']}", err=True)
@@ -330,6 +341,8 @@ def _print_run(result, folder: Path | None) -> None:
     ]
     rows.insert(-1, ("duties clipped", _clipped_text(s.get("clipped_duties"),
                                                      result.trace["t_s"].size)))
+    if parts:
+        rows.insert(1, ("parts", parts))
     test = s.get("test_result")
     if test:
         rows.append(("test", f"{test['name']}: {'PASSED' if test['passed'] else 'FAILED'}"))
@@ -434,7 +447,9 @@ def run(
                       video=False, plots=plots)
     if video and result.trace["t_s"].size > 1:
         _render_with_bar(result.folder, 30.0, (640, 480), None, camera)
-    _print_run(result, result.folder)
+    from .facts import parts_summary
+
+    _print_run(result, result.folder, parts_summary(spec))
     raise typer.Exit(_exit_code(result))
 
 
@@ -529,6 +544,9 @@ def suite(
             first = test["diagnosis"][0]
             typer.echo(f"{test['name']}: [{first['code']}] {first['text']}")
     passed = sum(t["passed"] for t in result["tests"])
+    from .facts import parts_summary
+
+    typer.echo(f"parts: {parts_summary(spec)} (upright inspect ROBOT lists them)")
     typer.echo(f"{passed} of {len(rows)} passed; report: {folder / 'report.html'}")
     raise typer.Exit(EXIT_OK if result["passed"] else EXIT_FELL)
 

@@ -105,3 +105,93 @@ def setpoint_changes(plan) -> list[tuple[float, float]]:
     """(t s, speed m/s) of the plan's timed speed setpoints, for charts."""
     return sorted((float(e.at), float(e.setpoint.speed)) for e in plan.events
                   if e.setpoint is not None and e.at is not None)
+
+
+# ------------------------------------------------------------ imperfections in force
+
+_SIDE_UNITS = {"stall_torque": ("N·m", 1.0), "no_load_speed": ("rpm", 60 / (2 * math.pi)),
+               "radius": ("mm", 1000.0), "width": ("mm", 1000.0), "mass": ("g", 1000.0),
+               "backlash": ("deg", 180 / math.pi), "friction_torque": ("N·m", 1.0),
+               "static_friction_torque": ("N·m", 1.0), "stall_current": ("A", 1.0),
+               "rated_voltage": ("V", 1.0), "rotor_inertia": ("kg·m²", 1.0),
+               "gear_ratio": ("", 1.0)}
+
+
+def _side_rows(section, name: str) -> list[tuple[str, str, str]]:
+    """One row per key a side overrides: ``motors.right.stall_torque``, both sides' values."""
+    rows = []
+    for side in ("left", "right"):
+        override = getattr(section, side)
+        if override is None:
+            continue
+        for key, value in override.model_dump(exclude_none=True).items():
+            base = getattr(section, key)
+            if value == base or not isinstance(value, (int, float)):
+                continue
+            unit, scale = _SIDE_UNITS.get(key, ("SI", 1.0))
+            change = f" ({100 * (value / base - 1):+.1f} %)" if base else ""
+            rows.append((f"{name}.{side}.{key} (the other side {base * scale:.4g})",
+                         f"{value * scale:.4g}{change}", unit))
+    return rows
+
+
+def imperfections(spec) -> list[list[str]]:
+    """[label, value, unit] rows for every imperfect part the robot file puts in force
+    (gearbox play, static friction, per-side differences, the IMU's filters with their
+    low-frequency group delay, mounting and scale errors, loop jitter, compute time);
+    empty for ideal parts."""
+    from .robot import filter_group_delay
+
+    m, imu, board = spec.motors, spec.imu, spec.board
+    rows: list[tuple[str, str, str]] = []
+    plays = {side: spec.motor_side(side).backlash for side in ("left", "right")}
+    if any(plays.values()):
+        value = (f"{math.degrees(plays['left']):.3g}" if plays["left"] == plays["right"] else
+                 f"{math.degrees(plays['left']):.3g} / {math.degrees(plays['right']):.3g}")
+        rows.append(("gearbox play (backlash), total at the output", value, "deg"))
+    if m.static_friction_torque is not None and m.static_friction_torque != m.friction_torque:
+        rows.append(("static (breakaway) friction torque, kinetic "
+                     f"{m.friction_torque:.3g}", f"{m.static_friction_torque:.3g}", "N·m"))
+    rows += _side_rows(m, "motors") + _side_rows(spec.wheels, "wheels")
+    for label, sensor in (("gyro", imu.gyro), ("accelerometer", imu.accel)):
+        if sensor.bandwidth is not None:
+            delay = filter_group_delay(sensor.bandwidth, imu.filter_order)
+            rows.append((f"{label} low-pass (Butterworth, order {imu.filter_order}), "
+                         f"group delay {1000 * delay:.2g} ms", f"{sensor.bandwidth:.3g}", "Hz"))
+        if sensor.scale_error:
+            rows.append((f"{label} scale error", f"{100 * sensor.scale_error:+.3g}", "%"))
+    if any(imu.rotation):
+        rows.append(("IMU mounting error (roll, pitch, yaw)",
+                     ", ".join(f"{math.degrees(a):.3g}" for a in imu.rotation), "deg"))
+    if board.loop_jitter:
+        rows.append(("loop jitter (standard deviation of the tick interval)",
+                     f"{1e6 * board.loop_jitter:.3g}", "µs"))
+    if board.compute_time:
+        rows.append(("compute time (reading to duties)", f"{1000 * board.compute_time:.3g}",
+                     "ms"))
+    return [list(r) for r in rows]
+
+
+def parts_summary(spec) -> str:
+    """One line for a run's or suite's table: 'ideal parts', or the imperfections in short."""
+    m, imu, board = spec.motors, spec.imu, spec.board
+    words = []
+    plays = [spec.motor_side(side).backlash for side in ("left", "right")]
+    if any(plays):
+        words.append(f"play {math.degrees(max(plays)):.3g}°")
+    if m.static_friction_torque is not None and m.static_friction_torque != m.friction_torque:
+        words.append("static friction")
+    if _side_rows(m, "motors") or _side_rows(spec.wheels, "wheels"):
+        words.append("sides differ")
+    cutoffs = [s.bandwidth for s in (imu.gyro, imu.accel) if s.bandwidth is not None]
+    if cutoffs:
+        words.append(f"IMU filter {min(cutoffs):.3g} Hz")
+    if any(imu.rotation) or imu.gyro.scale_error or imu.accel.scale_error:
+        words.append("IMU mounting/scale errors")
+    if board.loop_jitter:
+        words.append(f"jitter {1e6 * board.loop_jitter:.3g} µs")
+    if board.compute_time:
+        words.append(f"compute {1000 * board.compute_time:.3g} ms")
+    if not words:
+        return "ideal parts (the robot file lists no imperfections)"
+    return ", ".join(words)

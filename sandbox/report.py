@@ -86,6 +86,7 @@ def render_report(folder: Path, suite: dict[str, Any],
 <h1>Disturbance suite: {e(suite['robot'])} with {e(Path(suite['controller']).name)}</h1>
 <p>{passed} of {len(suite['tests'])} tests passed {_verdict(suite['passed'])}.
 <span class="small">Seed {suite['seed']}. Angles in degrees, distances in metres.</span></p>
+{_parts_line(suite)}
 {_about(suite)}
 <table id="summary">
 <tr><th>test</th><th>verdict</th><th>status</th><th>max |tilt|</th><th>rms tilt</th>
@@ -121,6 +122,14 @@ def _about(suite: dict[str, Any]) -> str:
         parts.append('<h2 id="robot">The robot</h2>'
                      '<table id="robot-figures"><tr><th>figure</th><th>value</th>'
                      f"<th>unit</th></tr>{_rows(figures)}</table>")
+    if "imperfections" in suite:  # suites written before the key have no parts section
+        rows = suite["imperfections"]
+        parts.append('<h2 id="parts">The parts: imperfections in force</h2>' + (
+            '<table id="imperfections"><tr><th>imperfection</th><th>value</th><th>unit</th>'
+            f"</tr>{_rows(rows)}</table>" if rows else
+            '<p id="imperfections">Ideal parts: the robot file lists no imperfections (no '
+            "gearbox play, static friction, per-side differences, IMU filter, mounting or "
+            "scale error, loop jitter or compute time). The real robot has them.</p>"))
     facts = suite.get("controller_facts")
     if facts:
         rows = [("script", facts.get("path", "")), ("class", facts.get("class", "")),
@@ -149,3 +158,12 @@ def _test_does(facts: dict[str, Any] | None) -> str:
             f'<span class="small">{facts.get("duration_s", 0):g} s on '
             f'{e(facts.get("ground", ""))}.</span></p>'
             + (f"<ul>{events}</ul>" if events else "") + "</div>")
+
+
+def _parts_line(suite: dict[str, Any]) -> str:
+    """Above the summary table: 'ideal parts', or the imperfections the runs had."""
+    if not suite.get("parts"):
+        return ""
+    return (f'<p id="parts-line">Parts: {html.escape(suite["parts"])}'
+            + (' (<a href="#parts">listed below</a>)' if suite.get("imperfections") else "")
+            + ".</p>")

@@ -113,10 +113,11 @@ def _longest_first(spec: RobotSpec, tests: tuple[str, ...]) -> list[str]:
 def _about(spec: RobotSpec, settings: RunSettings, tests: tuple[str, ...]) -> dict[str, Any]:
     """What the report says about the robot, the controller and each test."""
     from .events import builtin_tests
-    from .facts import controller_facts, describe_test, robot_figures
+    from .facts import controller_facts, describe_test, imperfections, parts_summary, robot_figures
 
     plans = builtin_tests(spec)
     return {"robot_figures": robot_figures(spec),
+            "imperfections": imperfections(spec), "parts": parts_summary(spec),
             "controller_facts": controller_facts(settings.controller, settings.config),
             "test_facts": {t: describe_test(plans[t]) for t in tests if t in plans}}
 

@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from ideal_parts import ideal_robot
 from typer.testing import CliRunner
 
 from sandbox.analysis import PlanarParams, duty_input_model, fall_time_constant, zoh_discretise
@@ -299,7 +300,7 @@ def pd_loop_poles(spec, kp: float, kd: float, delay_ticks: int) -> np.ndarray:
 
 def pd_run(config: dict, *, latency: float = 0.0, tilt_deg: float = 1.0, duration: float = 4.0,
            overrides: dict | None = None, controller: str = PD, fall_limit_deg: float = 60.0):
-    spec = load_robot(SHELF_RUNNER, {**IDEAL, **(overrides or {})})
+    spec = ideal_robot("shelf-runner", {**IDEAL, **(overrides or {})})
     settings = RunSettings(controller=controller, config=config, duration=duration,
                            tilt=math.radians(tilt_deg), latency=latency,
                            fall_limit=math.radians(fall_limit_deg))
@@ -308,7 +309,7 @@ def pd_run(config: dict, *, latency: float = 0.0, tilt_deg: float = 1.0, duratio
 
 @pytest.fixture(scope="module")
 def ideal_shelf():
-    return load_robot(SHELF_RUNNER, IDEAL)
+    return ideal_robot("shelf-runner", IDEAL)
 
 
 @pytest.fixture(scope="module")

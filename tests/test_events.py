@@ -17,6 +17,7 @@ import pytest
 import yaml
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from ideal_parts import ideal_robot
 from typer.testing import CliRunner
 
 from sandbox.actuators import DriveTrain
@@ -56,7 +57,7 @@ TICK = 0.005  # s, the controllers' 200 Hz period
 
 @pytest.fixture(scope="module")
 def spec():
-    return load_robot(SHELF_RUNNER)
+    return ideal_robot("shelf-runner")  # the tests are sized on ideal parts
 
 
 def events(*items: dict) -> tuple[EventSpec, ...]:

@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from ideal_parts import ideal_robot_file
 from typer.testing import CliRunner
 
 from sandbox.cli import app
@@ -175,8 +176,8 @@ def test_fitted_file_loads_where_the_keys_exist(tmp_path):
     from sandbox.fit.run import fit_robot
     from sandbox.robot import Motors, RobotSpec, robot_from_dict
 
-    result = fit_robot(ROOT / "robots" / "shelf-runner.yaml",
-                       spin=BENCH / "shelf-runner-spin.csv")
+    robot = ideal_robot_file("shelf-runner", tmp_path)  # the demo logs are of ideal parts
+    result = fit_robot(robot, spin=BENCH / "shelf-runner-spin.csv")
     data = yaml.safe_load(result.text)
     assert data["driver"]["deadband"] == pytest.approx(0.07, rel=0.05)
     assert "fitted from spin" in result.text
@@ -299,8 +300,8 @@ def test_compare_real_run_closer_to_fitted_than_unfitted(tmp_path):
 
     make_logs = _demo()
     secret = make_logs.SECRET
-    result = fit_robot(ROOT / "robots" / "shelf-runner.yaml",
-                       spin=BENCH / "shelf-runner-spin.csv")
+    robot = ideal_robot_file("shelf-runner", tmp_path)  # the demo logs are of ideal parts
+    result = fit_robot(robot, spin=BENCH / "shelf-runner-spin.csv")
     rows = {p.key: p.fitted for p in result.parameters}
     no_load = (rows["motors.left.no_load_speed"] + rows["motors.right.no_load_speed"]) / 2
     real = ["--set", f"body.parts.0.at=[0, 0, {secret['battery_at_z']}]",
@@ -312,7 +313,7 @@ def test_compare_real_run_closer_to_fitted_than_unfitted(tmp_path):
               "--set", f"motors.friction_torque={rows['motors.friction_torque']}"]
     runner = CliRunner()
     for name, sets in (("real", real), ("unfitted", []), ("fitted", fitted)):
-        res = runner.invoke(app, ["run", str(ROOT / "robots" / "shelf-runner.yaml"),
+        res = runner.invoke(app, ["run", str(robot),
                                   str(ROOT / "controllers" / "pid_tilt.py"), "--test", "push",
                                   "--seed", "1", "--out", str(tmp_path / name), *sets])
         assert res.exit_code == 0, res.output

@@ -8,12 +8,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 import scipy.integrate
+from ideal_parts import ideal_robot
 
 from sandbox.actuators import DriveTrain
 from sandbox.analysis import PlanarParams, duty_input_model, torque_input_model
 from sandbox.gearbox import Backlash, ContactDesign, CouplingGains, contact_torque
 from sandbox.identify import Excitation, identification_spec, record_run
-from sandbox.robot import RobotFileError, load_robot
+from sandbox.robot import RobotFileError
 from sandbox.runner import RunSettings, run
 from sandbox.world import World
 
@@ -23,7 +24,7 @@ ROBOT_NAMES = sorted(p.stem for p in ROBOTS.glob("*.yaml"))
 
 
 def robot(name: str, overrides: dict | None = None):
-    return load_robot(ROBOTS / f"{name}.yaml", overrides)
+    return ideal_robot(name, overrides)  # physics checks: ideal parts
 
 
 # ------------------------------------------------------------------ rotor coupling

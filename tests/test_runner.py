@@ -18,11 +18,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 import yaml
+from ideal_parts import ideal_robot
 from typer.testing import CliRunner
 
 from sandbox.cli import app
 from sandbox.record import DRIVE_COLUMNS, EVENT_COLUMN, POSE_COLUMNS, TEXT_COLUMNS, read_trace
-from sandbox.robot import load_robot
 from sandbox.runner import RunSettings, Simulation, TimingError, run
 from sandbox.world import World
 
@@ -50,13 +50,13 @@ def helper(name: str) -> str:
 
 @pytest.fixture(scope="module")
 def shelf_runner():
-    return load_robot(SHELF_RUNNER)
+    return ideal_robot("shelf-runner")
 
 
 @pytest.fixture(scope="module")
 def frictionless_robot():
     """shelf-runner without gearbox friction: at rest, torque is exactly K_t·duty·V/R or 0."""
-    return load_robot(SHELF_RUNNER, {"motors.friction_torque": 0.0})
+    return ideal_robot("shelf-runner", {"motors.friction_torque": 0.0})
 
 
 # ------------------------------------------------------------------ a fake world
@@ -271,7 +271,7 @@ def test_negative_latency_and_long_imu_latency_are_timing_errors(shelf_runner):
     with pytest.raises(TimingError, match="latency"):
         Simulation(shelf_runner, RunSettings(controller="f.py", latency=-0.001),
                    controller_class=Journaling, world_factory=FakeWorld)
-    slow_imu = load_robot(SHELF_RUNNER, {"imu.latency": "5 ms"})
+    slow_imu = ideal_robot("shelf-runner", {"imu.latency": "5 ms"})
     with pytest.raises(TimingError, match=r"imu\.latency \(5 ms\).*\(5 ms\)"):
         Simulation(slow_imu, RunSettings(controller="f.py"), controller_class=Journaling,
                    world_factory=FakeWorld)
@@ -294,7 +294,7 @@ def test_accelerometer_sees_the_mount_acceleration_of_its_sample_time(imu_rate, 
     no later than t − latency; the first sample (t_s = 0) has no previous velocity, so 0.
     Tolerance one LSB of the 16-bit ±2 g word.
     """
-    spec = load_robot(SHELF_RUNNER, {**NOISELESS_IMU, "imu.rate": imu_rate,
+    spec = ideal_robot("shelf-runner", {**NOISELESS_IMU, "imu.rate": imu_rate,
                                      "imu.latency": imu_latency})
     jerk = 20.0  # m/s³
     result, _, _ = fake_run(spec, duration=0.1, jerk=jerk, coupled=coupled)
@@ -453,7 +453,7 @@ class _WorldWithoutTickSense(World):
 def test_one_pass_tick_sensing_gives_the_same_trace(imu_latency):
     """World.tick_sense (one pass) and the separate accessors give the same trace to the
     last bit, on the usual path (sample at the tick) and with sensor latency."""
-    spec = load_robot(SHELF_RUNNER, {"imu.latency": imu_latency})
+    spec = ideal_robot("shelf-runner", {"imu.latency": imu_latency})
     settings = RunSettings(controller=str(CASCADE), duration=0.5, tilt=math.radians(3.0),
                            seed=4)
     fused = Simulation(spec, settings).run(None).trace
@@ -468,7 +468,7 @@ def test_one_pass_tick_sensing_gives_the_same_trace(imu_latency):
 
 @pytest.fixture(scope="module")
 def cascade_run(tmp_path_factory):
-    spec = load_robot(SHELF_RUNNER)
+    spec = ideal_robot("shelf-runner")
     folder = tmp_path_factory.mktemp("run")
     result = _run(spec, str(CASCADE), folder, duration=1.0, tilt=math.radians(3.0), seed=11)
     return result, folder
@@ -516,7 +516,7 @@ def test_run_yaml_records_what_is_needed_to_repeat(cascade_run):
     # the recorded robot loads back into the same description
     from sandbox.robot import robot_from_dict
 
-    assert robot_from_dict(record["robot"]) == load_robot(SHELF_RUNNER)
+    assert robot_from_dict(record["robot"]) == ideal_robot("shelf-runner")
 
 
 def test_robot_urdf_present(cascade_run):

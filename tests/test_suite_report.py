@@ -18,6 +18,7 @@ from pathlib import Path
 import matplotlib.figure
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 from PIL import Image
 from typer.testing import CliRunner
 
@@ -26,7 +27,6 @@ from sandbox.events import BUILTIN_NAMES
 from sandbox.plots import PANELS, plot_run
 from sandbox.record import read_trace
 from sandbox.report import render_report
-from sandbox.robot import load_robot
 from sandbox.runner import RunSettings
 from sandbox.suite import run_suite
 
@@ -41,7 +41,7 @@ PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 @pytest.fixture(scope="module")
 def spec():
-    return load_robot(SHELF_RUNNER)
+    return ideal_robot("shelf-runner")  # the figures below are of ideal parts
 
 
 @pytest.fixture(scope="module")

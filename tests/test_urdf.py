@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pybullet as pb
 import pytest
+from ideal_parts import ideal_robot
 from scipy.special import ellipk
 
 from sandbox.inertia import cylinder_inertia_y
@@ -25,8 +26,8 @@ OFFSET_OVERRIDES = {"body.parts.1.at": ["40 mm", 0, "180 mm"]}
 
 def robots_to_check() -> list[tuple[str, RobotSpec]]:
     """Every example robot, plus one with a part offset in x (non-diagonal inertia)."""
-    out = [(p.stem, load_robot(p)) for p in ROBOT_FILES]
-    out.append(("offset-x", load_robot(ROBOTS_DIR / "shelf-runner.yaml", OFFSET_OVERRIDES)))
+    out = [(p.stem, ideal_robot(p.stem)) for p in ROBOT_FILES]
+    out.append(("offset-x", ideal_robot("shelf-runner", OFFSET_OVERRIDES)))
     return out
 
 
@@ -138,7 +139,7 @@ def test_engine_masses_and_inertias_equal_derived_figures(client, tmp_path, name
 def test_offset_part_gives_a_product_of_inertia_the_engine_keeps(client, tmp_path):
     """A part 40 mm forward of the centre line gives Ixz ≠ 0 (Steiner, Meriam & Kraige);
     pybullet's principal axes and moments rebuild it (rtol 1e-6)."""
-    spec = load_robot(ROBOTS_DIR / "shelf-runner.yaml", OFFSET_OVERRIDES)
+    spec = ideal_robot("shelf-runner", OFFSET_OVERRIDES)
     ixz = spec.figures.body.inertia[0, 2]
     assert abs(ixz) > 0.01 * spec.figures.body.inertia[1, 1], "expected a clear xz product"
     _, inertia, _ = engine_inertia(client, load(client, spec, tmp_path), -1)
@@ -163,7 +164,7 @@ def test_reflected_inertia_urdf_is_valid_for_the_engine(client, tmp_path, path):
     Where that breaks the triangle inequality Ixx + Izz ≥ Iyy (required of any rigid body,
     any dynamics text) Ixx and Izz are raised equally, to just above the minimum (≤ 1 % of
     the shortfall extra). The engine must hold exactly the written values (rtol 1e-6)."""
-    spec = load_robot(path)
+    spec = ideal_robot(path.stem)  # ideal parts: backlash would leave the rotor off the wheels
     fig = spec.figures
     written = urdf_inertias(robot_urdf(spec, with_reflected_inertia=True))
     robot = load(client, spec, tmp_path, with_reflected_inertia=True)

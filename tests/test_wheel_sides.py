@@ -6,8 +6,8 @@ import math
 from pathlib import Path
 
 import pytest
+from ideal_parts import ideal_robot
 
-from sandbox.robot import load_robot
 from sandbox.urdf import robot_urdf, wheel_of
 from sandbox.world import World
 
@@ -30,14 +30,14 @@ class Sided:
 
 def test_shared_wheels_without_per_side_figures():
     """A description without per-side figures uses its one wheels section for both."""
-    spec = load_robot(ROBOTS / "shelf-runner.yaml")
+    spec = ideal_robot("shelf-runner")
     assert wheel_of(spec, "left") == spec.wheels and wheel_of(spec, "right") == spec.wheels
 
 
 def test_urdf_gives_each_wheel_its_own_radius_width_and_mass():
     """Each wheel link carries its side's cylinder and a solid cylinder's inertia about
     its axle, m r²/2 (standard formula); equal sides give the same text as no sides."""
-    spec = load_robot(ROBOTS / "shelf-runner.yaml")
+    spec = ideal_robot("shelf-runner")
     sided = Sided(spec, left={"radius": 0.0335, "mass": 0.040}, right={"width": 0.020})
     text = robot_urdf(sided)
     left, right = text.split('<link name="wheel_left">')[1].split('<link name="wheel_right">')
@@ -55,7 +55,7 @@ def test_unequal_radii_turn_the_robot_as_differential_drive_kinematics_say():
     the integral of (v_r − v_l)/track with v = (wheel rate relative to the body + pitch
     rate) × radius, within 3 % (differential-drive kinematics, SOURCES §11 [published]);
     the robot starts level on both wheels (rolled by asin(Δr/track))."""
-    base = load_robot(ROBOTS / "tall-mast.yaml")
+    base = ideal_robot("tall-mast")
     spec = Sided(base, left={"radius": 0.049})
     track = base.wheels.track
     with World(spec, tilt=0.0) as world:

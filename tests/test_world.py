@@ -11,10 +11,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 from scipy.optimize import least_squares, minimize_scalar
 
 from sandbox.analysis import PlanarParams, duty_input_model, open_loop_poles, torque_input_model
-from sandbox.robot import load_robot
 from sandbox.runner import RunSettings, Simulation, run
 from sandbox.world import Ground, World
 
@@ -81,7 +81,7 @@ def test_coasting_fall_follows_cosh_of_the_unstable_pole(robot_file):
     ``scipy.optimize.minimize_scalar`` on the squared error; tolerance 5 % (SOURCES
     says 3–5 %; measured here within 1 %).
     """
-    spec = load_robot(robot_file, COASTING)
+    spec = ideal_robot(robot_file.stem, COASTING)
     p_model = unstable_pole(torque_input_model(PlanarParams.from_spec(spec))[0])
     p_fit, _ = _coasting_fall_rate(spec)
     assert p_fit == pytest.approx(p_model, rel=0.05), (
@@ -101,7 +101,7 @@ def test_braked_fall_grows_at_the_duty_model_pole(robot_file):
     Fit a·e^{pt} + b·e^{−pt} over 0.15–0.4 s (scipy.optimize.least_squares):
     p within 5 % (measured here within 1.5 %).
     """
-    spec = load_robot(robot_file, FRICTIONLESS)
+    spec = ideal_robot(robot_file.stem, FRICTIONLESS)
     assert spec.driver.off_state == "brake"
     p_model = unstable_pole(duty_input_model(PlanarParams.from_spec(spec))[0])
     tilt0 = 1e-3
@@ -147,7 +147,7 @@ def test_noiseless_accelerometer_reads_static_tilt_at_first_tick(tilt_deg):
     The gyro reads 0 within one of its LSBs; the accelerometer tilt atan2(−f_x, f_z)
     gives back θ within 0.01°.
     """
-    spec = load_robot(ROOT / "robots" / "shelf-runner.yaml", NOISELESS_IMU)
+    spec = ideal_robot("shelf-runner", NOISELESS_IMU)
     accel_lsb = 2 * spec.imu.accel.range / 2**spec.imu.accel.bits
     gyro_lsb = 2 * spec.imu.gyro.range / 2**spec.imu.gyro.bits
     tilt = math.radians(tilt_deg)
@@ -175,7 +175,7 @@ def test_upright_robot_reads_plus_g_within_noise():
     σ_w = N·√f; the turn-on bias has σ_b = ``bias``. Mean of n samples: tolerance
     5·√(σ_w²/n + σ_b²) per axis (plus one LSB). Eleven ticks (50 ms), default noise, seed 0.
     """
-    spec = load_robot(ROOT / "robots" / "shelf-runner.yaml")
+    spec = ideal_robot("shelf-runner")
     result = _zero_controller_simulation(spec, 0.0, duration=0.05, seed=0).run(None)
     tr = result.trace
     n = tr["t_s"].size
