@@ -1,5 +1,8 @@
 """The delay margin `analyze --controller` predicts against full nonlinear runs.
 
+On the demo robots with ideal parts (tests/ideal_parts.py): the linear loop knows no
+gearbox play, static friction or IMU filter, so those would blur the comparison.
+
 Slow: each check bisects on the loop delay with complete runs in the physics engine.
 """
 
@@ -11,16 +14,16 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 
 from sandbox.analysis import analyze, emit_config, equivalent_poles
 from sandbox.margins import Bracket, Stress, find_margins
 from sandbox.probe import analyze_controller
-from sandbox.robot import load_robot
 from sandbox.runner import RunSettings
 from sandbox.session import run_once
 
 ROOT = Path(__file__).resolve().parents[1]
-ROBOTS = sorted((ROOT / "robots").glob("*.yaml"))
+ROBOTS = sorted(p.stem for p in (ROOT / "robots").glob("*.yaml"))
 CASCADE = str(ROOT / "controllers" / "cascade.py")
 SATURATED = 0.01  # a run with the duty at full for more than 1 % of its ticks: not small-signal
 GROWING = 1.5  # the pitch rate's rms over the last second against that over the second one
@@ -57,8 +60,8 @@ def _simulated_delay_margin(spec, settings: RunSettings) -> float:
     return bracket.passing
 
 
-@pytest.mark.parametrize("robot", ROBOTS, ids=lambda p: p.stem)
-def test_predicted_delay_margin_matches_the_simulation(robot: Path) -> None:
+@pytest.mark.parametrize("robot", ROBOTS)
+def test_predicted_delay_margin_matches_the_simulation(robot: str) -> None:
     """The delay margin of the sampled linear loop (phase margin over crossover, the
     classical delay margin: Åström & Murray, *Feedback Systems*, 2nd ed., §10.3)
     [memory] against bisection on `--latency` with full runs (motors, friction, contacts,
@@ -67,29 +70,29 @@ def test_predicted_delay_margin_matches_the_simulation(robot: Path) -> None:
     does not grow by half from the second second to the last: beyond the
     linear margin the loop grows an oscillation until the duty clips (common practice:
     saturation turns linear instability into a bounded limit cycle)."""
-    spec = load_robot(robot)
+    spec = ideal_robot(robot)
     settings = _settings(spec)
     predicted = analyze_controller(spec, CASCADE, settings.config)["delay_margin_s"]
     simulated = _simulated_delay_margin(spec, settings)
     assert abs(simulated - predicted) <= 0.25 * predicted, (
-        f"{robot.stem}: delay margin predicted {predicted * 1000:.2f} ms, "
+        f"{robot}: delay margin predicted {predicted * 1000:.2f} ms, "
         f"simulated {simulated * 1000:.0f} ms")
 
 
-@pytest.mark.parametrize("robot", ROBOTS, ids=lambda p: p.stem)
-def test_margins_command_agrees_with_the_prediction(robot: Path) -> None:
+@pytest.mark.parametrize("robot", ROBOTS)
+def test_margins_command_agrees_with_the_prediction(robot: str) -> None:
     """`upright margins` (the push test passed with the duty at full on at most
     `margins.SATURATED_SHARE` of its ticks) finds the predicted delay margin (phase margin
     over crossover: Åström & Murray, *Feedback Systems*, 2nd ed., §10.3 [memory]) within
     25 % (the issue's figure), on every demo robot with the emitted gains."""
-    spec = load_robot(robot)
+    spec = ideal_robot(robot)
     settings = _settings(spec)
     predicted = analyze_controller(spec, CASCADE, settings.config)["delay_margin_s"]
     result = find_margins(spec, replace(settings, duration=10.0, tilt=0.0),
                           stresses=("delay",), workers=1)
     (entry,) = result.margins
     assert abs(entry["margin"] - predicted) <= 0.25 * predicted, (
-        f"{robot.stem}: margins found {entry['margin'] * 1000:.0f} ms, "
+        f"{robot}: margins found {entry['margin'] * 1000:.0f} ms, "
         f"predicted {predicted * 1000:.2f} ms")
 
 
@@ -99,7 +102,7 @@ def test_past_the_margin_a_saturated_limit_cycle_at_the_predicted_frequency() ->
     full run does not fall but swings at that pair's frequency (within 15 %, the issue's
     figure for a predicted oscillation) with the duty saturated on a fifth of the ticks or
     more, and a test that only asks "did it stay up" passes it."""
-    spec = load_robot(ROOT / "robots" / "shelf-runner.yaml")
+    spec = ideal_robot("shelf-runner")
     settings = _settings(spec)
     probed = analyze_controller(spec, CASCADE, settings.config, latency=0.015)
     assert not probed["stable"]

@@ -12,15 +12,14 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 
 from sandbox.events import resolve_test
 from sandbox.record import DRIVE_COLUMNS, EVENT_COLUMN, PLAY_COLUMNS, read_trace
-from sandbox.robot import load_robot
 from sandbox.runner import RunSettings, Simulation
 from sandbox.world import World, pb
 
 ROOT = Path(__file__).resolve().parents[1]
-SHELF_RUNNER = ROOT / "robots" / "shelf-runner.yaml"
 CASCADE = ROOT / "controllers" / "cascade.py"
 
 
@@ -60,7 +59,7 @@ def simulate(spec, *, test: str | None = None, duration: float = 1.0, latency: f
 @pytest.fixture(scope="module")
 def push_run(tmp_path_factory):
     """shelf-runner, cascade, the built-in push test to just past its first push."""
-    spec = load_robot(SHELF_RUNNER)
+    spec = ideal_robot("shelf-runner")
     folder = tmp_path_factory.mktemp("push")
     EngineRecordingWorld.made.clear()
     result, timeline = simulate(spec, test="push", duration=2.6, folder=folder,
@@ -101,7 +100,7 @@ def test_voltage_is_what_the_bridge_applies_after_the_latency():
     """With 10 ms of latency at 200 Hz the bridge applies the duty of two ticks before:
     voltage[k] = D[k − 2]·V_s[k] within half a PWM step (SOURCES §5 [published]), not
     this tick's duty."""
-    spec = load_robot(SHELF_RUNNER)
+    spec = ideal_robot("shelf-runner")
     result, _ = simulate(spec, duration=0.6, latency=0.01)
     trace = result.trace
     supply = np.maximum(trace["battery_v"] - spec.driver.voltage_drop, 0.0)
@@ -118,7 +117,7 @@ def test_torque_is_kt_times_current_without_friction():
     """T = K_t·i, K_t at the output shaft = stall torque / stall current (SOURCES §5
     [published]): with the gearbox's friction set to zero the recorded torque of each
     side is K_t times the recorded current, to rounding."""
-    spec = load_robot(SHELF_RUNNER, {"motors.friction_torque": 0.0})
+    spec = ideal_robot("shelf-runner", {"motors.friction_torque": 0.0})
     result, _ = simulate(spec, duration=0.6)
     kt = spec.motors.stall_torque / spec.motors.stall_current
     for side in "lr":
@@ -181,7 +180,7 @@ def test_setpoint_follows_the_drive_test(tmp_path):
     """The setpoint columns hold the drive test's timeline: each row the speed and turn of
     the last setpoint event at or before it (zero before the first), and ``event`` names
     each change on its tick (its comma kept inside the CSV cell)."""
-    spec = load_robot(SHELF_RUNNER)
+    spec = ideal_robot("shelf-runner")
     plan = resolve_test("drive", spec)
     result, timeline = simulate(spec, test="drive", duration=5.5, folder=tmp_path)
     trace = read_trace(tmp_path / "trace.csv")
@@ -218,7 +217,7 @@ class Overdriving:
 def test_duty_raw_is_what_the_controller_returned():
     """``duty_raw_*`` is the duty as ``step`` returned it; ``duty_*`` the same clipped to
     [-1, 1] (the run's contract, DESIGN.md)."""
-    spec = load_robot(SHELF_RUNNER)
+    spec = ideal_robot("shelf-runner")
     result, _ = simulate(spec, duration=0.1, controller_class=Overdriving)
     trace = result.trace
     n = trace["t_s"].size
@@ -238,7 +237,7 @@ def test_duty_raw_is_what_the_controller_returned():
 def backlash_run():
     """shelf-runner with 1.5° of gearbox play (SOURCES §11, small plastic gearboxes
     [common practice]), encoders on the motor shafts, the cascade for 2 s."""
-    spec = load_robot(SHELF_RUNNER, {"motors.backlash": "1.5 deg"})
+    spec = ideal_robot("shelf-runner", {"motors.backlash": "1.5 deg"})
     EngineRecordingWorld.made.clear()
     result, _ = simulate(spec, duration=2.0, world_factory=EngineRecordingWorld)
     (world,) = EngineRecordingWorld.made
@@ -290,7 +289,7 @@ def test_motor_shaft_encoders_count_the_motor_side(backlash_run):
 def test_wheel_shaft_encoders_count_the_wheel():
     """An encoder on the gearbox's output counts floor(θ·N / 2π) of the wheel's angle θ
     (N counts per wheel turn [common practice]), whatever the play."""
-    spec = load_robot(SHELF_RUNNER, {"motors.backlash": "1.5 deg", "encoders.shaft": "wheel"})
+    spec = ideal_robot("shelf-runner", {"motors.backlash": "1.5 deg", "encoders.shaft": "wheel"})
     result, _ = simulate(spec, duration=0.5)
     trace = result.trace
     per_radian = spec.encoders.counts_per_rev / (2 * math.pi)
