@@ -15,7 +15,6 @@ from typing import Annotated, Any
 
 import typer
 
-from . import __version__
 from .tables import fmt, table
 
 app = typer.Typer(
@@ -25,6 +24,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # Plain help: rich's renderer costs more start-up than all of upright's own imports.
+    rich_markup_mode=None,
 )
 
 EXIT_OK, EXIT_FELL, EXIT_BAD_INPUT, EXIT_CONTROLLER = 0, 1, 2, 3
@@ -64,24 +65,29 @@ def handles_errors(command):
 
     @functools.wraps(command)
     def wrapper(*args, **kwargs):
-        from .control import ControllerError, ControllerLoadError
-
         try:
             return command(*args, **kwargs)
         except typer.Exit:
             raise
-        except ControllerLoadError as err:
-            _fail(f"error: {err}", EXIT_BAD_INPUT)
-        except ControllerError as err:
-            _fail(f"controller error: {err}", EXIT_CONTROLLER)
-        except (ValueError, OSError) as err:  # RobotFileError, UnitError, BadInput, ...
-            _fail(f"error: {err}", EXIT_BAD_INPUT)
+        except Exception as err:
+            # Imported only on an error: the controller module pulls in numpy.
+            from .control import ControllerError, ControllerLoadError
+
+            if isinstance(err, ControllerLoadError):
+                _fail(f"error: {err}", EXIT_BAD_INPUT)
+            if isinstance(err, ControllerError):
+                _fail(f"controller error: {err}", EXIT_CONTROLLER)
+            if isinstance(err, (ValueError, OSError)):  # RobotFileError, UnitError, BadInput
+                _fail(f"error: {err}", EXIT_BAD_INPUT)
+            raise
 
     return wrapper
 
 
 def _version(value: bool) -> None:
     if value:
+        from . import __version__
+
         typer.echo(f"upright {__version__}")
         raise typer.Exit()
 

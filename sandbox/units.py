@@ -80,8 +80,19 @@ class UnitError(ValueError):
 @lru_cache(maxsize=1)
 def registry() -> Any:
     """The shared pint unit registry, built on first use (building it takes ~0.2 s)."""
-    import pint
+    import sys
 
+    # pint's compatibility layer imports dask and scipy when they are installed (~0.25 s)
+    # though upright never hands it their arrays: hide the ones not yet loaded meanwhile.
+    hidden = [name for name in ("dask", "scipy") if name not in sys.modules]
+    for name in hidden:
+        sys.modules[name] = None  # type: ignore[assignment]  # makes `import name` fail
+    try:
+        import pint
+    finally:
+        for name in hidden:
+            if sys.modules.get(name, 0) is None:
+                del sys.modules[name]
     return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 
 
