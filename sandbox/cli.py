@@ -413,6 +413,12 @@ def run(
         "take (0.001 to 60).")] = 1.0,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
     camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
+    watch: Annotated[bool, typer.Option(
+        "--watch", help="Show the run live in the engine's own window, in real time "
+        "(needs a display).")] = False,
+    slow_motion: Annotated[float, typer.Option(
+        "--slow-motion", help="With --watch: wall-clock seconds per simulated second "
+        "(1 to 100).")] = 1.0,
 ) -> None:
     """One headless run of a controller on a robot; writes a run folder."""
     from .session import run_once
@@ -430,11 +436,25 @@ def run(
     folder = out
     result = run_once(spec, settings, test=test, folder=folder, default_root=Path("runs"),
                       label=_controller_label(controller), duration_given=duration is not None,
-                      video=False, plots=plots)
+                      video=False, plots=plots, world_factory=_watch_factory(watch, slow_motion))
     if video and result.trace["t_s"].size > 1:
         _render_with_bar(result.folder, 30.0, (640, 480), None, camera)
     _print_run(result, result.folder)
     raise typer.Exit(_exit_code(result))
+
+
+def _watch_factory(watch: bool, slow_motion: float):
+    """The world factory for --watch (None without it); no display: one line, exit 2."""
+    if not (math.isfinite(slow_motion) and 1.0 <= slow_motion <= 100.0):
+        raise BadInput(f"--slow-motion must be from 1 to 100, got {slow_motion:g}")
+    if not watch:
+        return None
+    from .watch import display_problem, watched_world_factory
+
+    problem = display_problem()
+    if problem is not None:
+        raise BadInput(problem)
+    return watched_world_factory(slow_motion)
 
 
 def _check_camera(camera: str) -> None:

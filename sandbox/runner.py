@@ -398,9 +398,11 @@ def run_record(spec: RobotSpec, settings: RunSettings, rate_hz: float,
 
 def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
         ground: Ground | None = None, timeline: Any = None,
-        extra_record: dict | None = None) -> RunResult:
-    """Run a controller on a robot; write the run folder when ``folder`` is given."""
-    sim = Simulation(spec, settings, ground=ground, timeline=timeline)
+        extra_record: dict | None = None, world_factory: Callable[..., Any] = World) -> RunResult:
+    """Run a controller on a robot; write the run folder when ``folder`` is given.
+    ``world_factory`` makes the world (``sandbox.watch`` passes one with a window)."""
+    sim = Simulation(spec, settings, ground=ground, timeline=timeline,
+                     world_factory=world_factory)
     if folder is not None:
         from .urdf import robot_urdf
         from .world import ground_record

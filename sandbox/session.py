@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import replace
 from pathlib import Path
+from typing import Any
 
 from .record import default_run_dir
 from .robot import RobotSpec
@@ -17,7 +18,7 @@ from .runner import RunResult, RunSettings, run
 def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
              folder: Path | None = None, default_root: Path = Path("runs"),
              label: str = "controller", duration_given: bool = False, video: bool = False,
-             plots: bool = True, write: bool = True) -> RunResult:
+             plots: bool = True, write: bool = True, world_factory: Any = None) -> RunResult:
     """Run ``settings`` on ``spec`` (optionally through a test) into a run folder.
 
     ``write=False`` keeps everything in memory (sweeps): no folder, plots or video;
@@ -44,8 +45,9 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
     elif folder is None:
         folder = default_run_dir(default_root, spec.name, label, test_name)
     extra = {"test_definition": plan.describe()} if plan is not None else None
+    more = {} if world_factory is None else {"world_factory": world_factory}
     result = run(spec, settings, folder=folder, ground=ground, timeline=timeline,
-                 extra_record=extra)
+                 extra_record=extra, **more)
     if plan is not None:
         result.summary["test_result"] = plan.judge(result, timeline)
         result.summary["marks"] = [list(m) for m in timeline.marks]
