@@ -93,7 +93,10 @@ def registry() -> Any:
         for name in hidden:
             if sys.modules.get(name, 0) is None:
                 del sys.modules[name]
-    return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    try:  # pint's own cache of its parsed definitions (user cache folder): 0.5 s -> 0.07 s
+        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=":auto:")
+    except OSError:  # no writable cache folder: build from the definitions every time
+        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 
 
 def to_si(value: object, kind: str) -> float:
