@@ -30,7 +30,8 @@ from sandbox.world import window_snapshot
 
 spec = load_robot(sys.argv[1])
 world = WatchedWorld(spec, physics_dt=1e-3, tilt=0.0)
-world.step(0.0, 0.0)
+for _ in range(100):  # 0.1 s, paced: the window's thread takes up the camera meanwhile
+    world.step(0.0, 0.0)
 np.save(sys.argv[2], window_snapshot(world.client))
 world.close()
 """
@@ -85,5 +86,7 @@ def test_the_window_shows_the_robot(tmp_path):
     image = np.load(out)
     assert image.shape == (240, 320, 3)
     assert image.std() > 10.0  # not one flat colour
-    colours = {tuple(int(c) // 32 for c in px) for px in image.reshape(-1, 3)[::7]}
-    assert len(colours) >= 4
+    pixels = image.reshape(-1, 3).astype(int)
+    red, green, blue = pixels[:, 0], pixels[:, 1], pixels[:, 2]
+    frame = (green > red + 30) & (green > blue + 30)  # the robot's frame is drawn green
+    assert frame.sum() >= 50, frame.sum()
