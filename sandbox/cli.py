@@ -15,7 +15,6 @@ from typing import Annotated, Any
 
 import typer
 
-from . import __version__
 from .tables import fmt, table
 
 app = typer.Typer(
@@ -25,6 +24,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # Plain help: rich's renderer costs more start-up than all of upright's own imports.
+    rich_markup_mode=None,
 )
 
 EXIT_OK, EXIT_FELL, EXIT_BAD_INPUT, EXIT_CONTROLLER = 0, 1, 2, 3
@@ -64,24 +65,29 @@ def handles_errors(command):
 
     @functools.wraps(command)
     def wrapper(*args, **kwargs):
-        from .control import ControllerError, ControllerLoadError
-
         try:
             return command(*args, **kwargs)
         except typer.Exit:
             raise
-        except ControllerLoadError as err:
-            _fail(f"error: {err}", EXIT_BAD_INPUT)
-        except ControllerError as err:
-            _fail(f"controller error: {err}", EXIT_CONTROLLER)
-        except (ValueError, OSError) as err:  # RobotFileError, UnitError, BadInput, ...
-            _fail(f"error: {err}", EXIT_BAD_INPUT)
+        except Exception as err:
+            # Imported only on an error: the controller module pulls in numpy.
+            from .control import ControllerError, ControllerLoadError
+
+            if isinstance(err, ControllerLoadError):
+                _fail(f"error: {err}", EXIT_BAD_INPUT)
+            if isinstance(err, ControllerError):
+                _fail(f"controller error: {err}", EXIT_CONTROLLER)
+            if isinstance(err, (ValueError, OSError)):  # RobotFileError, UnitError, BadInput
+                _fail(f"error: {err}", EXIT_BAD_INPUT)
+            raise
 
     return wrapper
 
 
 def _version(value: bool) -> None:
     if value:
+        from . import __version__
+
         typer.echo(f"upright {__version__}")
         raise typer.Exit()
 
@@ -423,6 +429,12 @@ def run(
         "take (0.001 to 60).")] = 1.0,
     plots: Annotated[bool, typer.Option("--plots/--no-plots", help="Write plots.png.")] = True,
     camera: Annotated[str, typer.Option("--camera", help=CAMERA_HELP)] = "side",
+    watch: Annotated[bool, typer.Option(
+        "--watch", help="Show the run live in the engine's own window, in real time "
+        "(needs a display).")] = False,
+    slow_motion: Annotated[float, typer.Option(
+        "--slow-motion", help="With --watch: wall-clock seconds per simulated second "
+        "(1 to 100).")] = 1.0,
 ) -> None:
     """One headless run of a controller on a robot; writes a run folder."""
     from .session import run_once
@@ -444,7 +456,7 @@ def run(
     folder = out
     result = run_once(spec, settings, test=test, folder=folder, default_root=Path("runs"),
                       label=_controller_label(controller), duration_given=duration is not None,
-                      video=False, plots=plots)
+                      video=False, plots=plots, world_factory=_watch_factory(watch, slow_motion))
     if video and result.trace["t_s"].size > 1:
         _render_with_bar(result.folder, 30.0, (640, 480), None, camera)
     from .facts import parts_summary
@@ -458,6 +470,20 @@ def _check_workers(workers: int | None) -> None:
 
     if workers is not None:
         bounds.WORKERS.check(workers)
+
+
+def _watch_factory(watch: bool, slow_motion: float):
+    """The world factory for --watch (None without it); no display: one line, exit 2."""
+    if not (math.isfinite(slow_motion) and 1.0 <= slow_motion <= 100.0):
+        raise BadInput(f"--slow-motion must be from 1 to 100, got {slow_motion:g}")
+    if not watch:
+        return None
+    from .watch import display_problem, watched_world_factory
+
+    problem = display_problem()
+    if problem is not None:
+        raise BadInput(problem)
+    return watched_world_factory(slow_motion)
 
 
 def _check_camera(camera: str) -> None:

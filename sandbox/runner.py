@@ -471,7 +471,8 @@ def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
         extra_record: dict | None = None,
         world_factory: Callable[..., Any] = World) -> RunResult:
     """Run a controller on a robot; write the run folder when ``folder`` is given.
-    ``world_factory``: where the world comes from (a sweep's worker reuses its worlds)."""
+    ``world_factory`` makes the world (a sweep's worker reuses its worlds; ``sandbox.watch``
+    passes one with a window)."""
     sim = Simulation(spec, settings, ground=ground, timeline=timeline,
                      world_factory=world_factory)
     if folder is not None:

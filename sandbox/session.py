@@ -45,9 +45,9 @@ def run_once(spec: RobotSpec, settings: RunSettings, *, test: str | None = None,
     elif folder is None:
         folder = default_run_dir(default_root, spec.name, label, test_name)
     extra = {"test_definition": plan.describe()} if plan is not None else None
+    more = {} if world_factory is None else {"world_factory": world_factory}
     result = run(spec, settings, folder=folder, ground=ground, timeline=timeline,
-                 extra_record=extra, **({"world_factory": world_factory} if world_factory
-                                        else {}))
+                 extra_record=extra, **more)
     if plan is not None:
         result.summary["test_result"] = plan.judge(result, timeline)
         result.summary["marks"] = [list(m) for m in timeline.marks]

@@ -54,6 +54,45 @@ def engine_version() -> int:
     return pb.getAPIVersion()
 
 
+class NoDisplay(RuntimeError):
+    """The engine's window cannot open: no display, or the display refused it."""
+
+
+def connect(connection: str = "direct") -> int:
+    """A new engine connection: "direct" (headless) or "gui" (the engine's own window;
+    the physics is the same, the window only draws it)."""
+    if connection == "direct":
+        with quiet():
+            return pb.connect(pb.DIRECT)
+    if connection != "gui":
+        raise ValueError(f"connection must be 'direct' or 'gui', got {connection!r}")
+    client = pb.connect(pb.GUI, options="--width=800 --height=600")
+    if client < 0:
+        raise NoDisplay("the engine's window could not open on this display")
+    for flag in (pb.COV_ENABLE_GUI, pb.COV_ENABLE_SHADOWS):  # just the scene, no side panels
+        pb.configureDebugVisualizer(flag, 0, physicsClientId=client)
+    return client
+
+
+def look_at(client: int, body: int, distance: float, yaw_deg: float = 50.0,
+            pitch_deg: float = -20.0) -> None:
+    """Point the engine window's camera at ``body`` from ``distance`` m (a read only:
+    the physics is not touched)."""
+    target, _ = pb.getBasePositionAndOrientation(body, physicsClientId=client)
+    pb.resetDebugVisualizerCamera(distance, yaw_deg, pitch_deg, list(target),
+                                  physicsClientId=client)
+
+
+def window_snapshot(client: int, width: int = 320, height: int = 240) -> np.ndarray:
+    """The window's present view as an RGB array (height, width, 3), drawn by its OpenGL."""
+    view = pb.getDebugVisualizerCamera(physicsClientId=client)
+    _, _, rgba, _, _ = pb.getCameraImage(width, height, viewMatrix=view[2],
+                                          projectionMatrix=view[3],
+                                          renderer=pb.ER_BULLET_HARDWARE_OPENGL,
+                                          physicsClientId=client)
+    return np.reshape(np.asarray(rgba, dtype=np.uint8), (height, width, 4))[..., :3]
+
+
 @dataclass(frozen=True)
 class Patch:
     """A stretch of floor with its own friction, from ``start`` to ``end`` m along x."""
@@ -317,6 +356,7 @@ class World:
         ground: Ground | None = None,
         gravity: float = 9.80665,
         rotor_coupling: bool = True,
+        connection: str = "direct",
     ):
         self.spec = spec
         self.dt = float(physics_dt)
@@ -334,8 +374,7 @@ class World:
         # the wheel through the play: the wheels in the engine carry no rotor inertia.
         self.backlash = float(getattr(spec.motors, "backlash", 0.0))
         self._gearbox: Backlash | None = None
-        with quiet():
-            self.client = pb.connect(pb.DIRECT)
+        self.client = connect(connection)
         c = self.client
         pb.setGravity(0, 0, -self.gravity, physicsClientId=c)
         pb.setTimeStep(self.dt, physicsClientId=c)

@@ -1,0 +1,81 @@
+"""Start-up rules (issue 13 item 2): `upright --help` and `upright inspect` load none of the
+heavy libraries they do not need. Each case runs in a fresh interpreter, imports sandbox.cli,
+runs the command and lists what ended up in sys.modules. No engine runs here."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import yaml
+
+from sandbox.robot import load_robot
+
+ROOT = Path(__file__).resolve().parent.parent
+HEAVY = ("dask", "matplotlib", "scipy", "pint", "pybullet", "jinja2", "rich")
+
+PROBE = """
+import json, sys
+import sandbox.cli
+try:
+    sandbox.cli.app(sys.argv[1:], prog_name="upright", standalone_mode=False)
+except SystemExit:
+    pass
+loaded = sorted({name.split(".")[0] for name in sys.modules})
+print(json.dumps(loaded))
+"""
+
+
+def loaded_after(*args: str) -> set[str]:
+    """Top-level modules loaded after running ``upright ARGS`` in a new interpreter."""
+    done = subprocess.run([sys.executable, "-c", PROBE, *args], capture_output=True,
+                          text=True, timeout=120, cwd=ROOT)
+    assert done.returncode == 0, done.stderr
+    return set(json.loads(done.stdout.strip().splitlines()[-1]))
+
+
+def si_robot_file(folder: Path) -> Path:
+    """desk-mite written with plain SI numbers only: no unit string for pint to read."""
+    data = load_robot(ROOT / "robots" / "desk-mite.yaml").to_si_dict()
+    for part in data["body"]["parts"]:
+        if part.get("colour") is None:
+            part.pop("colour", None)
+    path = folder / "si-only.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return path
+
+
+def test_import_of_the_cli_loads_nothing_heavy():
+    loaded = loaded_after("--version")
+    assert not loaded & {*HEAVY, "numpy", "pydantic"}, loaded & {*HEAVY, "numpy", "pydantic"}
+
+
+def test_help_loads_nothing_heavy():
+    loaded = loaded_after("--help")
+    assert not loaded & set(HEAVY), loaded & set(HEAVY)
+
+
+def test_command_help_loads_nothing_heavy():
+    loaded = loaded_after("run", "--help")
+    assert not loaded & set(HEAVY), loaded & set(HEAVY)
+
+
+def test_inspect_of_a_file_with_unit_strings_loads_pint_but_not_dask_or_scipy():
+    loaded = loaded_after("inspect", str(ROOT / "robots" / "desk-mite.yaml"))
+    assert "pint" in loaded  # the demo file has unit strings: pint is built for them
+    assert not loaded & {"dask", "matplotlib", "scipy", "pybullet", "jinja2"}
+
+
+def test_inspect_of_a_file_in_plain_si_does_not_build_pint(tmp_path):
+    path = si_robot_file(tmp_path)
+    loaded = loaded_after("inspect", str(path))
+    assert not loaded & set(HEAVY), loaded & set(HEAVY)
+
+
+def test_the_si_file_describes_the_same_robot(tmp_path):
+    """The plain-SI copy reads back to the same figures as the file with unit strings."""
+    original = load_robot(ROOT / "robots" / "desk-mite.yaml")
+    copy = load_robot(si_robot_file(tmp_path))
+    assert copy.to_si_dict() == original.to_si_dict()
