@@ -12,6 +12,7 @@ from pathlib import Path
 import control
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 
 from sandbox.analysis import PlanarParams, analyze, duty_input_model, emit_config
 from sandbox.control import RobotFacts, load_controller_class
@@ -28,7 +29,6 @@ from sandbox.probe import (
     stability_margins,
 )
 from sandbox.probe.report import geometry_of, sample_delay_steps, steps_per_tick
-from sandbox.robot import load_robot
 
 ROOT = Path(__file__).resolve().parents[1]
 ROBOTS = sorted((ROOT / "robots").glob("*.yaml"))
@@ -36,6 +36,11 @@ DESK_MITE = ROOT / "robots" / "desk-mite.yaml"
 CASCADE = str(ROOT / "controllers" / "cascade.py")
 PID_TILT = str(ROOT / "controllers" / "pid_tilt.py")
 STATE_FEEDBACK = str(ROOT / "tests" / "controllers" / "state_feedback.py")
+
+
+def _ideal(robot: Path, overrides: dict | None = None):
+    """The demo robot with ideal parts: the linear loop knows no play, friction or filter."""
+    return ideal_robot(Path(robot).stem, overrides)
 
 
 def _state_feedback_config(spec) -> tuple[dict, dict]:
@@ -83,7 +88,7 @@ def test_a_known_linear_law_is_identified_and_closes_the_loop_analyze_predicts()
     reconstruction is deadbeat). Source: the zero-order-hold closed loop x_{k+1} = (Φ − ΓK)x_k
     (Franklin, Powell & Workman, *Digital Control of Dynamic Systems*, ch. 8) [memory];
     reference values computed here with scipy (analysis.dlqr, analysis.zoh_discretise)."""
-    spec = load_robot(DESK_MITE)
+    spec = _ideal(DESK_MITE)
     config, result = _state_feedback_config(spec)
     probed = analyze_controller(spec, STATE_FEEDBACK, config, accel_feels_motion=False)
     assert probed["warnings"] == [], probed["warnings"]
@@ -110,7 +115,7 @@ def test_a_known_linear_law_is_identified_and_closes_the_loop_analyze_predicts()
 
 def _loop_of(robot: Path, script: str, config: dict):
     """The sampled plant and identified model of a script on a robot, as analyze builds them."""
-    spec = load_robot(robot)
+    spec = _ideal(robot)
     cls = load_controller_class(script)
     facts = RobotFacts.from_spec(spec, 200.0, 1e-3)
     model = identify(cls, config, facts).model
@@ -142,7 +147,7 @@ def test_margins_agree_with_python_control(robot: Path, script: str) -> None:
     crossings on these 6- to 16-state loops (a crossover at |L| = 1.70, checked against
     its own `sys(z)`), so the tf route is no reference here. It gives no delay margin: the
     phase margin (rad) over its gain crossover (rad/s), the least over all crossovers."""
-    spec = load_robot(robot)
+    spec = _ideal(robot)
     config = (_state_feedback_config(spec)[0] if script == STATE_FEEDBACK
               else emit_config(analyze(spec), script))
     plant, model = _loop_of(robot, script, config)
@@ -236,7 +241,7 @@ def test_a_nonlinear_script_gets_a_warning_naming_the_test(tmp_path: Path, power
     but not proportional, which the size test shows (superposition, derived)."""
     script = tmp_path / f"power{power}.py"
     script.write_text(NONLINEAR.replace("{exp}", "3" if power == 2 else "5"))
-    probed = analyze_controller(load_robot(DESK_MITE), str(script), {"power": power})
+    probed = analyze_controller(_ideal(DESK_MITE), str(script), {"power": power})
     tilt_warnings = [w for w in probed["warnings"] if w.startswith("tilt: nonlinear")]
     assert any(f"({test} test)" in w for w in tilt_warnings), probed["warnings"]
     assert not any(w.startswith("gyro: nonlinear") for w in probed["warnings"])
@@ -249,7 +254,7 @@ def test_tilt_only_pid_shows_the_runaway_pole_and_what_it_lacks() -> None:
     Emami-Naeini, Example 2.7 class) [memory]: a closed-loop pole at or right of z = 1
     and the finding that names the missing feedback. With the emitted speed_kd it is
     stable and has margins."""
-    spec = load_robot(DESK_MITE)
+    spec = _ideal(DESK_MITE)
     config = emit_config(analyze(spec), PID_TILT)
     probed = analyze_controller(spec, PID_TILT, {**config, "speed_kd": 0.0})
     poles = [complex(a, b) for a, b in probed["closed_loop_poles"]]
@@ -269,7 +274,7 @@ def test_a_destabilising_sign_is_reported() -> None:
     """pid_tilt with the tilt gain's sign flipped: a lean forward drives the wheels backward,
     the pendulum's restoring condition (closed-loop stiffness b·kp − p² > 0, SOURCES.md §1
     [derived]) fails: unstable, and the finding names the tilt feedback and its sign."""
-    spec = load_robot(DESK_MITE)
+    spec = _ideal(DESK_MITE)
     config = emit_config(analyze(spec), PID_TILT)
     probed = analyze_controller(spec, PID_TILT, {**config, "kp": -config["kp"]})
     assert not probed["stable"]
