@@ -25,6 +25,7 @@ whether the class has ``reset``).
 
 from __future__ import annotations
 
+import json
 import multiprocessing
 import os
 import random
@@ -48,11 +49,13 @@ from .control import (
     Reading,
     RobotFacts,
     Setpoint,
+    TrackedConfig,
     _check_log_name,
     duty_floats,
     failure_text,
     load_controller_class,
     make_controller,
+    tracked_config,
 )
 
 DEFAULT_STEP_TIMEOUT = 1.0  # s of wall clock per step/reset call
@@ -166,6 +169,16 @@ class IsolatedController:
         kind, _ = self._ask(REQUEST.pack(b"R", *_QUIET), self.step_timeout, "reset")
         if kind != b"D":
             self._fail(f"the controller's process answered {kind!r} to reset")
+
+    def config_reads(self) -> TrackedConfig | None:
+        """The config keys the script has read in its process, or None where it cannot
+        say (the child gone, an unreadable answer)."""
+        try:
+            kind, body = self._ask(REQUEST.pack(b"K", *_QUIET), self.step_timeout,
+                                   "config reads")
+        except ControllerError:
+            return None
+        return _decode_reads(body) if kind == b"K" else None
 
     def close(self) -> None:
         """End the child process and remove its scratch folder."""
@@ -360,12 +373,13 @@ def _child_main(requests: Any, replies: Any, script: str, config: dict, robot: R
     reading = Reading(dt=1.0 / robot.rate_hz)
     unpack, size = REQUEST.unpack, REQUEST.size
     with interrupts.exits_raise():
-        _answer(source, out, step, reset, reading, unpack, size, cls)
+        _answer(source, out, step, reset, reading, unpack, size, cls,
+                tracked_config(controller))
     os._exit(0)  # past any thread or atexit handler the script left behind
 
 
 def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpack: Any,
-            size: int, cls: type) -> None:
+            size: int, cls: type, config: TrackedConfig | None) -> None:
     """Answer requests until the input ends. A copy of this process the script forked
     leaves at once, silently: only the process the parent started may answer."""
     me = os.getpid()
@@ -390,6 +404,9 @@ def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpa
                 left, right = duty_floats(step(reading))
                 logs = reading.take_logs()
                 body = DUTIES.pack(left, right) + (_encode_logs(logs) if logs else b"")
+            elif kind == b"K":  # which config keys the script has read
+                _send(out, b"K", _encode_reads(config))
+                continue
             elif kind == b"R":
                 if callable(reset):
                     reset()
@@ -417,6 +434,29 @@ def _with_place(text: str, err: BaseException, cls: type) -> str:
 
     where = script_location(err, cls)
     return f"{text} ({where})" if where else text
+
+
+def _encode_reads(config: TrackedConfig | None) -> bytes:
+    if config is None:
+        return b"{}"
+    keys = sorted(k for k in config.read_keys if isinstance(k, str))
+    return json.dumps({"all": config.read_all, "read": keys}).encode("utf-8")
+
+
+def _decode_reads(body: bytes) -> TrackedConfig | None:
+    """The child's config reads as an empty :class:`TrackedConfig` that holds them (the
+    child is not trusted: anything unreadable counts as no record)."""
+    try:
+        data = json.loads(body.decode("utf-8"))
+        read = data["read"]
+        if not isinstance(read, list) or len(read) > 100_000:
+            return None
+        reads = TrackedConfig()
+        reads.read_all = bool(data["all"])
+        reads.read_keys = {k for k in read if isinstance(k, str)}
+        return reads
+    except (ValueError, KeyError, TypeError, UnicodeDecodeError):
+        return None
 
 
 def _send(fd: int, kind: bytes, body: bytes) -> None:

@@ -166,6 +166,8 @@ class Simulation:
             loop.status, loop.message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
         finally:
             if isinstance(loop.controller, IsolatedController):
+                if s.config:
+                    loop.config_reads = loop.controller.config_reads()
                 loop.controller.close()  # its process and scratch folder
             try:
                 writer.close()
@@ -197,7 +199,9 @@ class Simulation:
             "dropped_log_channels": sorted(getattr(writer, "dropped_channels", ())),
         }
         if s.config and loop.controller is not None:
-            unread = unread_keys(tracked_config(loop.controller), s.config)
+            reads = (loop.config_reads if isinstance(loop.controller, IsolatedController)
+                     else tracked_config(loop.controller))
+            unread = unread_keys(reads, s.config)
             summary["unread_config_keys"] = [
                 {"key": key, "did_you_mean": near,
                  "text": unread_key_text(key, near, s.controller)} for key, near in unread]
@@ -248,6 +252,7 @@ class _Loop:
         self.status, self.message, self.fell_at = STATUS_COMPLETED, "", None
         self.clipped = 0
         self.pid = os.getpid()  # the run's process (a script may fork)
+        self.config_reads = None  # an isolated controller's config reads, asked at the end
         self.ticks_run = 0
         self.step = 0
         self.x = 0.0  # distance travelled along the heading (m), trapezoidal from the speed
