@@ -16,6 +16,7 @@ import csv
 import io
 import json
 import os
+import secrets
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
@@ -54,9 +55,7 @@ class SweepFolder:
                     f"{folder} holds a different sweep (it differs in: {', '.join(differs)}); "
                     "choose another output folder, or delete this one to start again")
         else:
-            scratch = path.with_suffix(".tmp")
-            scratch.write_text(json.dumps(definition, indent=2), encoding="utf-8")
-            os.replace(scratch, path)
+            write_text_atomic(path, json.dumps(definition, indent=2))
         self.done: dict[int, dict[str, Any]] = self._read_points()
 
     def _read_points(self) -> dict[int, dict[str, Any]]:
@@ -203,6 +202,11 @@ def read_results(path: Path) -> list[dict[str, str]]:
 
 
 def write_text_atomic(path: Path, text: str) -> None:
-    scratch = path.with_name(path.name + ".tmp")
-    scratch.write_text(text, encoding="utf-8")
-    os.replace(scratch, path)
+    """Write ``path`` whole or not at all, through a scratch file of a name no other
+    writer uses (process id and a random part), so two rewrites never share one."""
+    scratch = path.with_name(f"{path.name}.{os.getpid()}.{secrets.token_hex(4)}.tmp")
+    try:
+        scratch.write_text(text, encoding="utf-8")
+        os.replace(scratch, path)
+    finally:
+        scratch.unlink(missing_ok=True)
