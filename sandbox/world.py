@@ -580,6 +580,8 @@ class World:
         with what a saved state leaves out: the floor's contact settings."""
         c = self.client
         self._settled_state = pb.saveState(physicsClientId=c)
+        # the one piece of Python state the settling leaves (read by the first step)
+        self._settled_axle_axis = self._axle_axis
         self._settled_floors = [pb.getDynamicsInfo(f, -1, physicsClientId=c) for f in
                                 self.floor_ids]
 
@@ -601,6 +603,8 @@ class World:
             pb.changeDynamics(floor, -1, lateralFriction=info[1], rollingFriction=info[6],
                               spinningFriction=info[7], physicsClientId=c)
         self._start_run_state(spec)
+        self._axle_axis = self._settled_axle_axis
+        self._forget_reads()  # engine reads cached by the last run's final step
 
     def release(self) -> None:
         """Disconnect a kept world (its runs' ``close`` left it open)."""

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from ideal_parts import ideal_robot
 
 from sandbox.events import BUILTIN_NAMES
 from sandbox.robot import load_robot
@@ -32,7 +33,20 @@ PID_TILT = str(ROOT / "controllers" / "pid_tilt.py")
 
 @pytest.fixture(scope="module")
 def shelf_runner():
-    return load_robot(ROOT / "robots" / "shelf-runner.yaml")
+    """shelf-runner with ideal parts: worlds are kept only for robots without gearbox
+    play (see test_a_robot_with_play_gets_a_world_of_its_own)."""
+    return ideal_robot("shelf-runner")
+
+
+def test_a_robot_with_play_gets_a_world_of_its_own() -> None:
+    """A robot with backlash is never run in a restored world: each run builds its own."""
+    spec = load_robot(ROOT / "robots" / "shelf-runner.yaml")
+    assert spec.motors.backlash > 0
+    keeper = WorldKeeper()
+    for _ in range(2):
+        world = keeper(spec)
+        world.close()
+    assert (keeper.built, keeper.reused, len(keeper.worlds)) == (2, 0, 0)
 
 
 def trace_bytes(result) -> bytes:
