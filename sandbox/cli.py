@@ -553,9 +553,15 @@ def suite(
     load_controller_class(controller)  # a broken script stops here, before any worker starts
     label = _controller_label(controller)
     folder = out or default_run_dir(Path("runs"), spec.name, label, "suite")
-    with _progress_bar(len(BUILTIN_NAMES), "tests") as bar:
-        result = run_suite(spec, settings, folder, video=video, label=label, workers=workers,
-                           progress=lambda _name: bar.update(1), plots=plots)
+    try:
+        with _progress_bar(len(BUILTIN_NAMES), "tests") as bar:
+            result = run_suite(spec, settings, folder, video=video, label=label,
+                               workers=workers, progress=lambda _name: bar.update(1),
+                               plots=plots)
+    except KeyboardInterrupt:
+        _fail(f"interrupted (Ctrl-C): the tests that finished are in {folder / 'suite.json'} "
+              f"and {folder / 'report.html'}; run the suite again for the rest",
+              EXIT_INTERRUPTED)
     rows = []
     for test in result["tests"]:
         failed = "; ".join(c["label"] for c in test["checks"] if not c["passed"])

@@ -14,6 +14,7 @@ from __future__ import annotations
 import os
 import signal
 import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 
@@ -110,3 +111,19 @@ def exits_raise() -> Iterator[None]:
         yield
     finally:
         os._exit = real_exit
+
+
+def end_with_parent(poll: float = 0.5) -> None:
+    """In a helper process (a pool or suite worker): leave within ``poll`` seconds of
+    the parent's death, however it died (SIGKILL too), instead of running on orphaned.
+    A watcher thread sees the parent change (the orphan is handed to init or a
+    subreaper)."""
+    first_parent = os.getppid()
+
+    def watch() -> None:
+        while True:
+            time.sleep(poll)
+            if os.getppid() != first_parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="upright-parent-watch", daemon=True).start()

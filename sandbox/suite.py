@@ -7,7 +7,7 @@ collects every test's status and figures and ``report.html`` shows them.
 from __future__ import annotations
 
 import os
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import replace
 from pathlib import Path
@@ -48,6 +48,16 @@ def _chart(spec: RobotSpec, test: str, result) -> str:
                      setpoint_changes(plan) if plan is not None else (), title=test)
 
 
+def _worker_start() -> None:
+    """A suite worker: Ctrl-C is the parent's to handle; leave when the parent dies."""
+    import signal
+
+    from .interrupts import end_with_parent
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    end_with_parent()
+
+
 def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
               tests: tuple[str, ...] = BUILTIN_NAMES, workers: int | None = None,
               video: bool = False, label: str = "controller",
@@ -64,25 +74,52 @@ def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
     results: dict[str, dict[str, Any]] = {}
     jobs = {test: (spec_data, replace(settings), test, folder / test, video, label, plots)
             for test in tests}
+    try:
+        _run_tests(spec, tests, jobs, results, workers, progress)
+    except KeyboardInterrupt:
+        # cut short: what finished is written all the same, the rest named as not run
+        done = [t for t in tests if t in results]
+        _write_suite(spec, settings, folder, done, results,
+                     interrupted=[t for t in tests if t not in results])
+        raise
+    return _write_suite(spec, settings, folder, tests, results)
+
+
+def _run_tests(spec: RobotSpec, tests: Sequence[str], jobs: dict, results: dict,
+               workers: int, progress: Callable[[str], None] | None) -> None:
+    """Run each test's job into ``results`` (one after another, or side by side)."""
     if workers == 1:
         for test, args in jobs.items():
             results[test] = _run_test(*args)
             if progress:
                 progress(test)
-    else:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            futures = {pool.submit(_run_test, *jobs[test]): test
-                       for test in _longest_first(spec, tests)}
-            for future in as_completed(futures):
-                results[futures[future]] = future.result()
-                if progress:
-                    progress(futures[future])
+        return
+    pool = ProcessPoolExecutor(max_workers=workers, initializer=_worker_start)
+    try:
+        futures = {pool.submit(_run_test, *jobs[test]): test
+                   for test in _longest_first(spec, tests)}
+        for future in as_completed(futures):
+            results[futures[future]] = future.result()
+            if progress:
+                progress(futures[future])
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)
+        for process in list((getattr(pool, "_processes", None) or {}).values()):
+            process.terminate()  # a test cut mid-run keeps the trace it streamed
+        raise
+    pool.shutdown()
+
+
+def _write_suite(spec: RobotSpec, settings: RunSettings, folder: Path, tests: Sequence[str],
+                 results: dict, interrupted: Sequence[str] = ()) -> dict[str, Any]:
+    """suite.json and report.html for the tests in ``results``."""
     ordered = [results[t] for t in tests]
     suite = {
         "robot": spec.name,
         "controller": settings.controller,
         "seed": settings.seed,
-        "passed": all(_passed(r) for r in ordered),
+        "passed": all(_passed(r) for r in ordered) and not interrupted,
+        "interrupted": list(interrupted),
         "tests": [{"name": r["test"], "status": r["status"], "passed": _passed(r),
                    "folder": r["folder"], "message": r["message"],
                    "checks": r["summary"].get("test_result", {}).get("checks", []),

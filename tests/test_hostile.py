@@ -248,3 +248,48 @@ def test_concurrent_rewrites_share_no_scratch_file(tmp_path):
     lines = path.read_text(encoding="utf-8").splitlines()
     assert len(lines) == 50 and len(set(lines)) == 1, "results.csv is torn"
     assert [p.name for p in tmp_path.iterdir()] == ["results.csv"]
+
+
+def test_a_sweep_folder_another_live_sweep_holds_is_refused(tmp_path: Path) -> None:
+    """A lock file naming a live process refuses a second sweep on that --out (exit 2,
+    the holder named); a lock left by a process that has gone is taken over."""
+    from sandbox.sweep.store import LOCK
+
+    out = tmp_path / "sweep"
+    out.mkdir()
+    holder = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        (out / LOCK).write_text(f"{holder.pid}\n")
+        args = ["sweep", ROBOT, CASCADE, "--vary", "config.tilt_kp=10,12", "--duration",
+                "0.1", "--workers", "1", "--no-isolate", "--out", str(out)]
+        refused = CliRunner().invoke(app, args)
+        assert refused.exit_code == 2, refused.output
+        assert f"in use by another sweep (process {holder.pid})" in refused.output
+        assert not (out / "points.jsonl").exists()
+    finally:
+        holder.kill()
+        holder.wait()
+    taken = CliRunner().invoke(app, args)  # the holder has gone: its lock is stale
+    assert taken.exit_code == 0, taken.output
+    assert not (out / LOCK).exists(), "the lock is released when the sweep ends"
+
+
+def test_a_suite_cut_short_writes_what_finished(tmp_path: Path) -> None:
+    """Ctrl-C after the first test (raised from the progress callback, where the suite
+    is between tests): suite.json and report.html are written for the finished test,
+    the others are listed as interrupted, and the interrupt goes on to the caller."""
+    from sandbox.robot import load_robot
+    from sandbox.runner import RunSettings
+    from sandbox.suite import run_suite
+
+    def stop(_name: str) -> None:
+        raise KeyboardInterrupt
+
+    spec = load_robot(ROBOT)
+    with pytest.raises(KeyboardInterrupt):
+        run_suite(spec, RunSettings(controller=CASCADE), tmp_path / "suite", workers=1,
+                  progress=stop)
+    suite = json.loads((tmp_path / "suite" / "suite.json").read_text())
+    assert [t["name"] for t in suite["tests"]] == ["push"]
+    assert len(suite["interrupted"]) == 8 and not suite["passed"]
+    assert (tmp_path / "suite" / "report.html").is_file()

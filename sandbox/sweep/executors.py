@@ -83,6 +83,9 @@ def _install_common(common: RunCommon) -> None:
     _WORKER_COMMON = common
     # Ctrl-C belongs to the parent, which cancels the sweep; a worker finishes its run.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    from ..interrupts import end_with_parent
+
+    end_with_parent()
 
 
 def _run_installed(job: PointJob) -> dict:

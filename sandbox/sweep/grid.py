@@ -208,8 +208,11 @@ def run_sweep(spec: RobotSpec, settings: RunSettings, folder: Path, *,
     except KeyboardInterrupt:
         interrupted = True
     title = f"{spec.name} - {controller_label(settings.controller)} - {test or 'no test'}"
-    return finish(store, points, axes, spreads, samples, figure, ran, skipped, interrupted,
-                  plots, title)
+    try:
+        return finish(store, points, axes, spreads, samples, figure, ran, skipped,
+                      interrupted, plots, title)
+    finally:
+        store.release()
 
 
 def finish(store: SweepFolder, points: Sequence[Point], axes: Sequence[Axis],

@@ -12,6 +12,7 @@
 
 from __future__ import annotations
 
+import atexit
 import csv
 import io
 import json
@@ -34,12 +35,63 @@ def _normal(data: Any) -> Any:
     return json.loads(json.dumps(data, default=str))
 
 
+LOCK = "sweep.lock"
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # another user's process: alive
+        return True
+    return True
+
+
+def take_lock(folder: Path) -> Path:
+    """Hold ``folder`` for this process: a lock file with its process id. A lock whose
+    holder is still running refuses the sweep; one whose holder is gone (a crash, a
+    SIGKILL) is stale and taken over. Released by :func:`release_lock` (and at exit)."""
+    path = folder / LOCK
+    for _ in range(3):
+        try:
+            handle = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+        except FileExistsError:
+            try:
+                holder = int(path.read_text(encoding="ascii").strip() or "0")
+            except (OSError, ValueError):
+                holder = 0
+            if holder and holder != os.getpid() and _alive(holder):
+                raise SweepError(f"{folder} is in use by another sweep (process {holder}); "
+                                 "wait for it to finish, or give another --out") from None
+            try:
+                path.unlink()  # stale: its holder has gone
+            except FileNotFoundError:
+                pass
+            continue
+        with os.fdopen(handle, "w", encoding="ascii") as stream:
+            stream.write(f"{os.getpid()}\n")
+        atexit.register(release_lock, path)
+        return path
+    raise SweepError(f"{folder}: could not take the lock {path}; try again")
+
+
+def release_lock(path: Path) -> None:
+    """Remove this process's lock file (a lock another process now holds is left)."""
+    try:
+        if int(path.read_text(encoding="ascii").strip() or "0") == os.getpid():
+            path.unlink()
+    except (OSError, ValueError):
+        pass
+
+
 class SweepFolder:
     """The output folder of one sweep; ``done`` maps point numbers to finished rows."""
 
     def __init__(self, folder: Path, definition: dict[str, Any]):
         self.folder = folder
         folder.mkdir(parents=True, exist_ok=True)
+        self._lock = take_lock(folder)
         definition = _normal(definition)
         path = folder / DEFINITION
         if path.is_file():
@@ -71,6 +123,10 @@ class SweepFolder:
                 except (ValueError, KeyError, TypeError):
                     continue  # a line torn by a crash: that point runs again
         return done
+
+    def release(self) -> None:
+        """Let another sweep use this folder."""
+        release_lock(self._lock)
 
     def add(self, row: dict[str, Any]) -> None:
         """Append one finished point to points.jsonl and push it to the disk."""
