@@ -232,9 +232,8 @@ def writer_cpu_seconds() -> float:
         return math.nan
 
 
-def bench_robot(path: Path, seconds: float, rounds: int, tmp: Path) -> dict:
+def bench_robot(spec, label: str, seconds: float, rounds: int, tmp: Path) -> dict:
     """Every figure of one robot: costs per step, ratios, contacts, real-time factor."""
-    spec = load_robot(path)
     actuation, upright_contacts = record_actuation(spec, seconds, tmp / f"{spec.name}-recorded")
     steps = len(actuation)
     _, independent_contacts = independent_loop(spec, steps, count_contacts=True)
@@ -251,7 +250,7 @@ def bench_robot(path: Path, seconds: float, rounds: int, tmp: Path) -> dict:
         writer_cpu += writer_cpu_seconds() - writer_before
         full.append(cost)
         rtf.append(factor)
-    return {"robot": spec.name, "replay": replay, "independent": independent, "full": full,
+    return {"robot": label, "replay": replay, "independent": independent, "full": full,
             "rtf": max(rtf), "writer_us": writer_cpu / (steps * rounds) * 1e6,
             "upright_contacts": upright_contacts, "independent_contacts": independent_contacts}
 
@@ -263,25 +262,39 @@ def _median_ratio(top: list[float], bottom: list[float]) -> tuple[float, float, 
     return ratios[n // 2], ratios[n // 4], ratios[(3 * n) // 4]
 
 
+def _robots(paths: list[Path]):
+    """Each robot file as written (the demo robots list gearbox play, static friction,
+    IMU filters...) and, for a demo robot, with ideal parts: the loop's own cost without
+    the Python work each imperfection adds every physics step."""
+    sys.path.insert(0, str(ROOT / "tests"))
+    from ideal_parts import ideal_robot
+
+    for path in paths:
+        spec = load_robot(path)
+        yield spec.name, spec
+        if path.parent == ROOT / "robots":
+            yield f"{spec.name} (ideal)", ideal_robot(path.stem)
+
+
 def main() -> None:
     seconds = float(sys.argv[1]) if len(sys.argv) > 1 else 2.0
     rounds = int(sys.argv[2]) if len(sys.argv) > 2 else 11
     robots = [Path(a) for a in sys.argv[3:]] or ROBOTS
     print(f"{rounds} rounds of {seconds:g} s simulated per robot, 1 ms physics step, "
           "200 Hz controllers; median of per-round ratios (middle half)")
-    print(f"{'robot':<14}{'upright us':>11}{'indep us':>10}{'replay us':>10}"
+    print(f"{'robot':<22}{'upright us':>11}{'indep us':>10}{'replay us':>10}"
           f"{'up/indep':>18}{'up/replay':>18}{'contacts up/indep':>19}{'rtf':>7}")
     with tempfile.TemporaryDirectory() as tmp:
-        for path in robots:
-            r = bench_robot(path, seconds, rounds, Path(tmp))
+        for label, spec in _robots(robots):
+            r = bench_robot(spec, label, seconds, rounds, Path(tmp))
             mi, qi, ti = _median_ratio(r["full"], r["independent"])
             mr, qr, tr = _median_ratio(r["full"], r["replay"])
-            print(f"{r['robot']:<14}{min(r['full']) * 1e6:>11.1f}"
+            print(f"{r['robot']:<22}{min(r['full']) * 1e6:>11.1f}"
                   f"{min(r['independent']) * 1e6:>10.1f}{min(r['replay']) * 1e6:>10.1f}"
                   f"{mi:>8.2f} ({qi:.2f}-{ti:.2f}){mr:>8.2f} ({qr:.2f}-{tr:.2f})"
                   f"{r['upright_contacts']:>11.2f} / {r['independent_contacts']:.2f}"
                   f"{r['rtf']:>6.1f}x")
-            print(f"{'':<14}trace-writing process: {r['writer_us']:.1f} us of CPU per step, "
+            print(f"{'':<22}trace-writing process: {r['writer_us']:.1f} us of CPU per step, "
                   "on another core")
     print("targets: upright/independent <= 1.3, upright/replay <= 1.15 (costs: best round)")
 
