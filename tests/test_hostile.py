@@ -293,3 +293,44 @@ def test_a_suite_cut_short_writes_what_finished(tmp_path: Path) -> None:
     assert [t["name"] for t in suite["tests"]] == ["push"]
     assert len(suite["interrupted"]) == 8 and not suite["passed"]
     assert (tmp_path / "suite" / "report.html").is_file()
+
+
+def test_a_killed_worker_costs_the_sweep_a_retry_not_its_end(tmp_path: Path) -> None:
+    """A controller that kills its own worker process (SIGKILL, as the out-of-memory
+    killer would) on its first run: the point runs again in a new pool and the sweep
+    ends normally with every point recorded; one that kills it every time is recorded
+    as failed (worker_lost) after its second try."""
+    marker = tmp_path / "killed-once"
+    script = _script(tmp_path, "killer", f"""
+        import os, signal
+        from pathlib import Path
+
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                self.always = config.get("always", 0.0) > 0
+                self.target = config.get("tilt_kp", 0.0) == 12
+
+            def step(self, r):
+                marker = Path({str(marker)!r})
+                if self.target and (self.always or not marker.exists()):
+                    marker.write_text("x")
+                    os.kill(os.getpid(), signal.SIGKILL)
+                return 0.0, 0.0
+    """)
+    for always, out in ((0, "once"), (1, "always")):
+        args = ["sweep", ROBOT, str(script), "--vary", "config.tilt_kp=10,12,14",
+                "--set", f"config.always={always}", "--duration", "0.2", "--workers", "2",
+                "--no-isolate", "--out", str(tmp_path / out)]
+        done = _upright(*args, timeout=180)
+        assert done.returncode == 0, (done.stdout, done.stderr)
+        assert "Traceback" not in done.stderr
+        lines = [json.loads(line) for line in
+                 (tmp_path / out / "points.jsonl").read_text().splitlines()]
+        statuses = sorted(row["status"] for row in lines)
+        assert len(lines) == 3
+        if always:
+            assert statuses.count("worker_lost") == 1, statuses
+        else:
+            assert "worker_lost" not in statuses, statuses

@@ -14,12 +14,14 @@ import logging
 import multiprocessing
 import os
 import signal
+from collections import deque
 from collections.abc import Iterable, Iterator
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from contextlib import contextmanager
 from typing import Any, Protocol
 
-from .jobs import PointJob, RunCommon, run_point, run_points
+from .jobs import PointJob, RunCommon, lost_row, run_point, run_points
 
 IN_FLIGHT_PER_WORKER = 2
 DASK_IN_FLIGHT_PER_WORKER = 3  # tasks
@@ -102,18 +104,27 @@ class LocalProcesses:
 
     def __init__(self, common: RunCommon, workers: int):
         self.workers = workers
-        self.pool = ProcessPoolExecutor(
-            max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
-            initializer=_install_common, initargs=(common,))
+        self.common = common
+        self.pool = self._new_pool()
+
+    def _new_pool(self) -> ProcessPoolExecutor:
+        return ProcessPoolExecutor(
+            max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
+            initializer=_install_common, initargs=(self.common,))
 
     def map_unordered(self, jobs: Iterable[PointJob]) -> Iterator[tuple[PointJob, dict]]:
+        """Each job's row as it finishes. A worker that dies (killed, out of memory)
+        breaks the pool: a new pool runs the jobs it held once more, and a job whose
+        worker dies twice gets a failed row instead of ending the sweep."""
         queue = iter(jobs)
+        again: deque[PointJob] = deque()
+        lost: dict[int, int] = {}  # job index -> pools broken under it
         pending: dict[Any, PointJob] = {}
         window = IN_FLIGHT_PER_WORKER * self.workers
 
         def fill() -> None:
             while len(pending) < window:
-                job = next(queue, None)
+                job = again.popleft() if again else next(queue, None)
                 if job is None:
                     return
                 pending[self.pool.submit(_run_installed, job)] = job
@@ -121,9 +132,27 @@ class LocalProcesses:
         fill()
         while pending:
             finished, _ = wait(pending, return_when=FIRST_COMPLETED)
+            broken: list[PointJob] = []
             for future in finished:
                 job = pending.pop(future)
-                yield job, future.result()
+                try:
+                    row = future.result()
+                except BrokenProcessPool:
+                    broken.append(job)
+                    continue
+                yield job, row
+            if broken:
+                broken += pending.values()  # everything the broken pool held
+                pending.clear()
+                self.pool.shutdown(wait=False, cancel_futures=True)
+                self.pool = self._new_pool()
+                for job in broken:
+                    lost[job.index] = lost.get(job.index, 0) + 1
+                    if lost[job.index] >= 2:
+                        yield job, lost_row(job, "its worker process died twice while "
+                                                 "running it")
+                    else:
+                        again.append(job)
             fill()
 
     def close(self, cancel: bool = False) -> None:

@@ -167,6 +167,14 @@ def outcome_row(job: PointJob, status: str, message: str, summary: dict[str, Any
     return row
 
 
+STATUS_WORKER_LOST = "worker_lost"
+
+
+def lost_row(job: PointJob, message: str) -> dict[str, Any]:
+    """The row of a point whose worker process died under it twice: failed, no figures."""
+    return outcome_row(job, STATUS_WORKER_LOST, message, {}, {}, 0.0, None, 0.0)
+
+
 def _plain(value: Any) -> Any:
     if isinstance(value, (np.floating, np.integer)):
         value = value.item()
