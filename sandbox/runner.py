@@ -41,7 +41,7 @@ from .control import (
     unread_keys,
 )
 from .imu import Encoders, Imu
-from .interrupts import exits_raise, is_user_interrupt
+from .interrupts import deferred, exits_raise, is_user_interrupt
 from .isolate import IsolatedController, build_controller
 from .metrics import run_figures
 from .rates import nearby_rates
@@ -140,20 +140,20 @@ class Simulation:
         s = self.settings
         if folder is not None:
             folder.mkdir(parents=True, exist_ok=True)
-        world = self.world_factory(self.spec, physics_dt=s.physics_dt, tilt=s.tilt,
-                                   ground=self.ground)
+        interrupted = False
         try:
-            # without a folder the trace is kept in memory only (sweeps need the figures)
-            writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
-                                 block_rows=50 if folder is not None else 2000,
-                                 columns=trace_columns(_has_backlash(world)))
-        except OSError:
-            world.close()
-            raise
-        with exits_raise():
-            loop = _Loop(self, world, writer)
+            # a Ctrl-C during the set-up waits for it to be whole, so the run can end
+            # as interrupted with its summary and (empty) trace like any other
+            with deferred():
+                world, writer = self._world_and_writer(folder)
+                with exits_raise():
+                    loop = _Loop(self, world, writer)
+        except KeyboardInterrupt:
+            interrupted = True
         wall_start = time.perf_counter()
         try:
+            if interrupted:
+                raise KeyboardInterrupt
             with exits_raise():
                 loop.run()
         except ControllerError as err:
@@ -180,6 +180,20 @@ class Simulation:
             write_json(folder / "summary.json", summary)
         return RunResult(status=loop.status, summary=summary, folder=folder, trace=trace,
                          message=loop.message)
+
+    def _world_and_writer(self, folder: Path | None) -> tuple[Any, TraceWriter]:
+        s = self.settings
+        world = self.world_factory(self.spec, physics_dt=s.physics_dt, tilt=s.tilt,
+                                   ground=self.ground)
+        try:
+            # without a folder the trace is kept in memory only (sweeps need the figures)
+            writer = TraceWriter(folder / "trace.csv" if folder is not None else None,
+                                 block_rows=50 if folder is not None else 2000,
+                                 columns=trace_columns(_has_backlash(world)))
+        except OSError:
+            world.close()
+            raise
+        return world, writer
 
     def _summary(self, loop: _Loop, trace, wall, writer) -> dict:
         s = self.settings

@@ -334,3 +334,31 @@ def test_a_killed_worker_costs_the_sweep_a_retry_not_its_end(tmp_path: Path) -> 
             assert statuses.count("worker_lost") == 1, statuses
         else:
             assert "worker_lost" not in statuses, statuses
+
+
+@pytest.mark.parametrize("after", [0.3, 0.9, 1.6, 2.5])
+def test_ctrl_c_at_any_moment_ends_with_130_and_keeps_what_was_recorded(
+        after: float, tmp_path: Path) -> None:
+    """Ctrl-C (SIGINT to the process) at moments from start-up to mid-run: exit 130 every
+    time; once the run folder exists it has a summary (status interrupted) and a whole
+    trace (every row as long as the header)."""
+    import signal
+    import time
+
+    out = tmp_path / "run"
+    process = subprocess.Popen(
+        [sys.executable, "-m", "sandbox.cli", "run", ROBOT, CASCADE, "--duration", "30",
+         "--out", str(out), "--no-plots"], cwd=ROOT, stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE, env={**os.environ, "PYTHONPATH": str(ROOT)},
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+    time.sleep(after)
+    process.send_signal(signal.SIGINT)
+    _, err = process.communicate(timeout=60)
+    assert process.returncode == 130, err
+    assert b"Traceback" not in err
+    if (out / "trace.csv").exists():
+        summary = json.loads((out / "summary.json").read_text())
+        assert summary["status"] == "interrupted"
+        with (out / "trace.csv").open(newline="") as handle:
+            rows = list(csv.reader(handle))
+        assert all(len(row) == len(rows[0]) for row in rows)
