@@ -362,3 +362,33 @@ def test_ctrl_c_at_any_moment_ends_with_130_and_keeps_what_was_recorded(
         with (out / "trace.csv").open(newline="") as handle:
             rows = list(csv.reader(handle))
         assert all(len(row) == len(rows[0]) for row in rows)
+
+
+@pytest.mark.slow
+def test_a_killed_dask_worker_is_recorded_not_a_traceback(tmp_path: Path) -> None:
+    """With `--cluster local`, a point whose controller SIGKILLs its worker every time:
+    Dask tries it on new workers, then gives up; the point is recorded as worker_lost,
+    the other points complete, exit 0, no FutureCancelledError traceback."""
+    script = _script(tmp_path, "dask_killer", """
+        import os, signal
+
+        class Controller:
+            rate_hz = 200
+
+            def __init__(self, config, robot):
+                self.target = config.get("tilt_kp", 0.0) == 12
+
+            def step(self, r):
+                if self.target:
+                    os.kill(os.getpid(), signal.SIGKILL)
+                return 0.0, 0.0
+    """)
+    out = tmp_path / "sweep"
+    done = _upright("sweep", ROBOT, str(script), "--vary", "config.tilt_kp=10,12,14",
+                    "--duration", "0.2", "--workers", "2", "--no-isolate", "--cluster",
+                    "local", "--out", str(out), timeout=300)
+    assert done.returncode == 0, (done.stdout, done.stderr)
+    assert "Traceback" not in done.stderr
+    statuses = sorted(json.loads(line)["status"]
+                      for line in (out / "points.jsonl").read_text().splitlines())
+    assert statuses == ["completed", "completed", "worker_lost"]

@@ -24,6 +24,8 @@ from typing import Any, Protocol
 from .jobs import PointJob, RunCommon, lost_row, run_point, run_points
 
 IN_FLIGHT_PER_WORKER = 2
+# what a Dask future raises when the workers running it died
+LOST_WORKER_ERRORS = ("KilledWorker", "CancelledError", "FutureCancelledError")
 DASK_IN_FLIGHT_PER_WORKER = 3  # tasks
 DASK_MAX_RUNS_PER_TASK = 4
 # A local Dask cluster shares the machine's cores with its own bookkeeping. Measured on
@@ -214,7 +216,15 @@ class DaskCluster:
         refill()
         for future in stream:
             chunk = pending.pop(future.key)
-            rows = future.result()
+            try:
+                rows = future.result()
+            except Exception as err:  # noqa: BLE001 - only a lost worker is caught below
+                # Dask ran the task again on other workers and gave up (KilledWorker), or
+                # the future was cancelled under it: the points are recorded as lost
+                if type(err).__name__ not in LOST_WORKER_ERRORS:
+                    raise
+                rows = [lost_row(job, f"its Dask worker was lost ({type(err).__name__})")
+                        for job in chunk]
             if len(pending) <= self.workers:  # keep every worker's queue filled
                 refill()
             yield from zip(chunk, rows)
