@@ -95,14 +95,17 @@ class ProcessExit(SystemExit):
 @contextmanager
 def exits_raise() -> Iterator[None]:
     """While the block runs, ``os._exit`` called in this process raises ``SystemExit``
-    instead of ending the process on the spot (no summary, exit 0): a controller script
-    run in-process that calls it ends as a controller error, its trace kept. A forked
-    child (another process id) still leaves at once, as it must."""
+    in this thread instead of ending the process on the spot (no summary, exit 0): a
+    controller script run in-process that calls it ends as a controller error, its trace
+    kept. Other threads and a forked child (another process id) still leave at once."""
     real_exit = os._exit
     owner = os.getpid()
+    runner = threading.get_ident()
 
     def _exit(status: int) -> None:
-        if os.getpid() != owner:
+        # only the thread that runs the controller is caught: a Dask worker's own
+        # threads, a parent watcher, a forked child still leave at once
+        if os.getpid() != owner or threading.get_ident() != runner:
             real_exit(status)
         raise ProcessExit(status)
 
@@ -119,11 +122,12 @@ def end_with_parent(poll: float = 0.5) -> None:
     A watcher thread sees the parent change (the orphan is handed to init or a
     subreaper)."""
     first_parent = os.getppid()
+    leave = os._exit  # the real one: a run replaces os._exit while it goes (exits_raise)
 
     def watch() -> None:
         while True:
             time.sleep(poll)
             if os.getppid() != first_parent:
-                os._exit(1)
+                leave(1)
 
     threading.Thread(target=watch, name="upright-parent-watch", daemon=True).start()

@@ -392,3 +392,43 @@ def test_a_killed_dask_worker_is_recorded_not_a_traceback(tmp_path: Path) -> Non
     statuses = sorted(json.loads(line)["status"]
                       for line in (out / "points.jsonl").read_text().splitlines())
     assert statuses == ["completed", "completed", "worker_lost"]
+
+
+def _group_members(group: int) -> list[str]:
+    """Live processes of a process group (zombies aside), as `ps` lines."""
+    lines = subprocess.run(["ps", "-eo", "pid,pgid,stat,args"], capture_output=True,
+                           text=True).stdout.splitlines()[1:]
+    return [line for line in lines
+            if int(line.split()[1]) == group and not line.split()[2].startswith("Z")]
+
+
+@pytest.mark.parametrize("cluster", [[], pytest.param(["--cluster", "local"],
+                                                       marks=pytest.mark.slow)],
+                         ids=["local-processes", "dask-local"])
+def test_no_helper_process_outlives_a_killed_sweep(cluster: list[str], tmp_path: Path) -> None:
+    """SIGKILL of the sweep's own process mid-sweep: within a few seconds no process it
+    started (pool workers, trace writers, isolated controllers, Dask nannies and
+    workers) is still running."""
+    import signal
+    import time
+
+    process = subprocess.Popen(
+        [sys.executable, "-m", "sandbox.cli", "sweep", ROBOT, CASCADE, "--vary",
+         "config.tilt_kp=10,11,12,13,14,15", "--duration", "10", "--workers", "2",
+         "--out", str(tmp_path / "sweep"), *cluster], cwd=ROOT, stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL, env={**os.environ, "PYTHONPATH": str(ROOT)},
+        start_new_session=True)
+    deadline = time.monotonic() + 60
+    while len(_group_members(process.pid)) < 3 and time.monotonic() < deadline:
+        time.sleep(0.2)  # until the workers run
+    assert len(_group_members(process.pid)) >= 3, "the sweep started its workers"
+    time.sleep(1.0)
+    process.kill()
+    process.wait()
+    deadline = time.monotonic() + 10
+    while _group_members(process.pid) and time.monotonic() < deadline:
+        time.sleep(0.2)
+    left = _group_members(process.pid)
+    for line in left:  # leave the machine clean even when the check fails
+        os.kill(int(line.split()[0]), signal.SIGKILL)
+    assert not left, left

@@ -183,6 +183,12 @@ class DaskCluster:
                                             processes=True, dashboard_address=None,
                                             silence_logs=logging.ERROR)
                 self.client = Client(self.cluster)
+            from ..interrupts import end_with_parent
+
+            # the nannies (children of this process) and their workers leave when their
+            # parent dies, however it dies: no cluster runs on orphaned
+            self.client.run(end_with_parent, nanny=True)
+            self.client.run(end_with_parent)
         else:
             self.client = Client(address)
             self.client.wait_for_workers(1, timeout=60)
