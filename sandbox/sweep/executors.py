@@ -116,17 +116,24 @@ class LocalProcesses:
 
     def map_unordered(self, jobs: Iterable[PointJob]) -> Iterator[tuple[PointJob, dict]]:
         """Each job's row as it finishes. A worker that dies (killed, out of memory)
-        breaks the pool: a new pool runs the jobs it held once more, and a job whose
-        worker dies twice gets a failed row instead of ending the sweep."""
+        breaks the pool, and every job the pool held fails with it: a new pool runs each
+        of them again, one at a time (so a second death names its job), and a job that
+        breaks the pool when running alone a second time gets a failed row instead of
+        ending the sweep."""
         queue = iter(jobs)
-        again: deque[PointJob] = deque()
-        lost: dict[int, int] = {}  # job index -> pools broken under it
+        suspects: deque[PointJob] = deque()  # jobs a broken pool held, to run alone
+        suspected: set[int] = set()
         pending: dict[Any, PointJob] = {}
         window = IN_FLIGHT_PER_WORKER * self.workers
 
         def fill() -> None:
             while len(pending) < window:
-                job = again.popleft() if again else next(queue, None)
+                if suspects:
+                    if not pending:
+                        job = suspects.popleft()
+                        pending[self.pool.submit(_run_installed, job)] = job
+                    return
+                job = next(queue, None)
                 if job is None:
                     return
                 pending[self.pool.submit(_run_installed, job)] = job
@@ -149,12 +156,11 @@ class LocalProcesses:
                 self.pool.shutdown(wait=False, cancel_futures=True)
                 self.pool = self._new_pool()
                 for job in broken:
-                    lost[job.index] = lost.get(job.index, 0) + 1
-                    if lost[job.index] >= 2:
-                        yield job, lost_row(job, "its worker process died twice while "
-                                                 "running it")
+                    if len(broken) == 1 and job.index in suspected:
+                        yield job, lost_row(job, "its worker process died under it twice")
                     else:
-                        again.append(job)
+                        suspected.add(job.index)
+                        suspects.append(job)
             fill()
 
     def close(self, cancel: bool = False) -> None:
