@@ -116,12 +116,13 @@ def exits_raise() -> Iterator[None]:
         os._exit = real_exit
 
 
-def end_with_parent(poll: float = 0.5) -> None:
+def end_with_parent(parent: int | None = None, poll: float = 0.5) -> None:
     """In a helper process (a pool or suite worker): leave within ``poll`` seconds of
     the parent's death, however it died (SIGKILL too), instead of running on orphaned.
     A watcher thread sees the parent change (the orphan is handed to init or a
-    subreaper)."""
-    first_parent = os.getppid()
+    subreaper). ``parent``: the process id the parent had when it started this one
+    (it may already have died while this one was importing); default: the parent now."""
+    first_parent = os.getppid() if parent is None else parent
     leave = os._exit  # the real one: a run replaces os._exit while it goes (exits_raise)
 
     def watch() -> None:

@@ -48,14 +48,14 @@ def _chart(spec: RobotSpec, test: str, result) -> str:
                      setpoint_changes(plan) if plan is not None else (), title=test)
 
 
-def _worker_start() -> None:
+def _worker_start(parent: int) -> None:
     """A suite worker: Ctrl-C is the parent's to handle; leave when the parent dies."""
     import signal
 
     from .interrupts import end_with_parent
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    end_with_parent()
+    end_with_parent(parent)
 
 
 def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,
@@ -94,7 +94,8 @@ def _run_tests(spec: RobotSpec, tests: Sequence[str], jobs: dict, results: dict,
             if progress:
                 progress(test)
         return
-    pool = ProcessPoolExecutor(max_workers=workers, initializer=_worker_start)
+    pool = ProcessPoolExecutor(max_workers=workers, initializer=_worker_start,
+                               initargs=(os.getpid(),))
     try:
         futures = {pool.submit(_run_test, *jobs[test]): test
                    for test in _longest_first(spec, tests)}

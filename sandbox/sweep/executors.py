@@ -82,14 +82,14 @@ class InProcess:
 _WORKER_COMMON: RunCommon | None = None
 
 
-def _install_common(common: RunCommon) -> None:
+def _install_common(common: RunCommon, parent: int | None = None) -> None:
     global _WORKER_COMMON
     _WORKER_COMMON = common
     # Ctrl-C belongs to the parent, which cancels the sweep; a worker finishes its run.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from ..interrupts import end_with_parent
 
-    end_with_parent()
+    end_with_parent(parent)
 
 
 def _run_installed(job: PointJob) -> dict:
@@ -112,7 +112,7 @@ class LocalProcesses:
     def _new_pool(self) -> ProcessPoolExecutor:
         return ProcessPoolExecutor(
             max_workers=self.workers, mp_context=multiprocessing.get_context("spawn"),
-            initializer=_install_common, initargs=(self.common,))
+            initializer=_install_common, initargs=(self.common, os.getpid()))
 
     def map_unordered(self, jobs: Iterable[PointJob]) -> Iterator[tuple[PointJob, dict]]:
         """Each job's row as it finishes. A worker that dies (killed, out of memory)
@@ -191,10 +191,9 @@ class DaskCluster:
                 self.client = Client(self.cluster)
             from ..interrupts import end_with_parent
 
-            # the nannies (children of this process) and their workers leave when their
-            # parent dies, however it dies: no cluster runs on orphaned
-            self.client.run(end_with_parent, nanny=True)
-            self.client.run(end_with_parent)
+            # the workers (children of this process: a local cluster's nannies live in
+            # it) leave when it dies, however it dies: no cluster runs on orphaned
+            self.client.run(end_with_parent, os.getpid())
         else:
             self.client = Client(address)
             self.client.wait_for_workers(1, timeout=60)
