@@ -685,7 +685,8 @@ def demo(
     if video and result.trace["t_s"].size > 1:
         _render_with_bar(result.folder, 30.0, (640, 480), None)
     _print_run(result, result.folder)
-    typer.echo("next: open video.mp4 and plots.png there; then try "
+    shown = "video.mp4 and plots.png" if video else "plots.png"
+    typer.echo(f"next: open {shown} there; then try "
                "`upright suite robots/shelf-runner.yaml controllers/cascade.py`")
     raise typer.Exit(_exit_code(result))
 
