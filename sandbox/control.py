@@ -519,6 +519,16 @@ def make_controller(cls: type, config: dict | None, robot: RobotFacts) -> Any:
     return controller
 
 
+def failure_error(err: BaseException, call: str, cls: type, context: str) -> ControllerError:
+    """``err``, raised by the script's ``call`` (``"step()"``), as a ControllerError:
+    ``"<context>: step() raised ValueError: text (script.py, line 12)"``."""
+    if isinstance(err, ControllerError):
+        return ControllerError(f"{context}: {err}")
+    where = script_location(err, cls)
+    at = f" ({where})" if where else ""
+    return ControllerError(f"{context}: {failure_text(call, err)}{at}")
+
+
 def failure_text(call: str, err: BaseException) -> str:
     """``"step() raised ValueError: text"``, ``"step() called sys.exit(0)"`` for ``call``
     ``"step()"``; never raises."""

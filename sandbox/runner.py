@@ -33,9 +33,8 @@ from .control import (
     Setpoint,
     check_duties,
     controller_rate,
-    failure_text,
+    failure_error,
     load_controller_class,
-    script_location,
     tracked_config,
     unread_key_text,
     unread_keys,
@@ -425,11 +424,7 @@ def _tick_sense(world: Any, gravity, dt: float, mount) -> tuple:
 
 def _failure(err: BaseException, name: str, t: float, cls: type) -> ControllerError:
     """A controller method's exception as a ControllerError naming the time and the line."""
-    if isinstance(err, ControllerError):
-        return ControllerError(f"at t = {t:.3f} s: {err}")
-    where = script_location(err, cls)
-    at = f" ({where})" if where else ""
-    return ControllerError(f"at t = {t:.3f} s: {failure_text(name + '()', err)}{at}")
+    return failure_error(err, name + "()", cls, f"at t = {t:.3f} s")
 
 
 def _call(method: Callable, name: str, t: float, cls: type, *args):

@@ -30,8 +30,8 @@ from ..control import (
     Reading,
     RobotFacts,
     check_duties,
+    failure_error,
     make_controller,
-    script_location,
 )
 from ..units import STANDARD_GRAVITY
 from .loop import SENSOR_NAMES, ControllerModel
@@ -85,11 +85,7 @@ def fresh_controller(cls: type, config: dict | None, facts: RobotFacts) -> Any:
 
 
 def _failure(err: Exception, method: str, cls: type, when: str) -> ControllerError:
-    if isinstance(err, ControllerError):
-        return ControllerError(f"while {when}: {err}")
-    where = script_location(err, cls)
-    at = f" ({where})" if where else ""
-    return ControllerError(f"while {when}: {method}() raised {type(err).__name__}: {err}{at}")
+    return failure_error(err, method + "()", cls, f"while {when}")
 
 
 def drive(cls: type, config: dict | None, facts: RobotFacts, ticks: int,
