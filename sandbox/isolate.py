@@ -29,6 +29,7 @@ import json
 import multiprocessing
 import os
 import random
+import select
 import shutil
 import signal
 import struct
@@ -38,11 +39,12 @@ import threading
 import time
 import types
 import weakref
+from functools import partial
 from typing import Any
 
 import numpy as np
 
-from . import interrupts
+from . import interrupts, wire
 from .control import (
     _GOOD_LOG_NAMES,
     ControllerError,
@@ -69,6 +71,7 @@ DUTIES = struct.Struct("<dd")
 COUNT = struct.Struct("<I")
 _QUIET = (0.0,) * 10 + (0, 0)
 PR_SET_PDEATHSIG = 1  # linux/prctl.h
+REPLY_SPIN = 300e-6  # s the runner looks for a reply before it sleeps on the pipe
 
 
 def seed_globals(seed: int) -> None:
@@ -77,18 +80,28 @@ def seed_globals(seed: int) -> None:
     np.random.seed(seed % (1 << 32))
 
 
-def build_controller(cls: type, settings: Any, robot: RobotFacts) -> Any:
+def build_controller(cls: type, settings: Any, robot: RobotFacts,
+                     started: IsolatedController | None = None) -> Any:
     """The runner's controller object for ``settings`` (a RunSettings): the class built
-    here (``settings.isolate`` false) or an :class:`IsolatedController`."""
+    here (``settings.isolate`` false) or an :class:`IsolatedController` (``started``: one
+    :func:`start_isolated` began, now waited for)."""
     interrupts.install()
     if getattr(settings, "isolate", False):
-        return IsolatedController(settings.controller, settings.config, robot,
-                                  seed=settings.seed,
-                                  step_timeout=getattr(settings, "step_timeout",
-                                                       DEFAULT_STEP_TIMEOUT),
-                                  has_reset=callable(getattr(cls, "reset", None)))
+        controller = started or start_isolated(cls, settings, robot)
+        controller.wait_ready()
+        return controller
     seed_globals(settings.seed)
     return make_controller(cls, settings.config, robot)
+
+
+def start_isolated(cls: type, settings: Any, robot: RobotFacts) -> IsolatedController:
+    """Start the controller's process; it loads the script while the caller builds its
+    world, and :meth:`IsolatedController.wait_ready` waits for it."""
+    return IsolatedController(settings.controller, settings.config, robot,
+                              seed=settings.seed,
+                              step_timeout=getattr(settings, "step_timeout",
+                                                   DEFAULT_STEP_TIMEOUT),
+                              has_reset=callable(getattr(cls, "reset", None)), wait=False)
 
 
 def _context() -> Any:
@@ -120,10 +133,14 @@ class IsolatedController:
 
     def __init__(self, script: str, config: dict, robot: RobotFacts, *, seed: int = 0,
                  step_timeout: float = DEFAULT_STEP_TIMEOUT,
-                 memory_limit: int = DEFAULT_MEMORY_LIMIT, has_reset: bool = True):
+                 memory_limit: int = DEFAULT_MEMORY_LIMIT, has_reset: bool = True,
+                 wait: bool = True):
         self.step_timeout = float(step_timeout)
         self.broken = ""
         self.scratch = tempfile.mkdtemp(prefix="upright-controller-")
+        # with a core to spare, requests go through a shared page (sandbox.wire)
+        page = wire.new_page() if wire.spare_core() else None
+        self._slot = wire.RunnerSlot(page) if page else None
         context = _context()
         request_r, request_w = context.Pipe(duplex=False)
         reply_r, reply_w = context.Pipe(duplex=False)
@@ -131,7 +148,7 @@ class IsolatedController:
         process = context.Process(
             target=_child_main, name="upright-controller", daemon=False,
             args=(request_r, reply_w, script, dict(config or {}), robot, seed, os.getpid(),
-                  memory_limit, self.scratch))
+                  memory_limit, self.scratch, page))
         _start(process)
         request_r.close()
         reply_w.close()
@@ -140,25 +157,46 @@ class IsolatedController:
         self._out, self._in = request_w.fileno(), reply_r.fileno()
         # The time limit costs the tick nothing: a watchdog thread kills a child that has
         # owed an answer for too long, and the blocked read then ends.
+        self._owed = False  # a request sent whose reply is not yet read
         self._asked = [0.0, 0.0, ""]  # monotonic time asked (0: nothing owed), limit, call
         self._timed_out: list[str] = []
         stop = threading.Event()
         threading.Thread(target=_watchdog, args=(self._asked, self._timed_out, process, stop),
                          name="upright-step-timeout", daemon=True).start()
         self._finalizer = weakref.finalize(self, _shutdown, process, self._connections,
-                                           self.scratch, stop)
-        kind, body = self._ask(b"", LOAD_TIMEOUT, "loading and building the controller")
+                                           self.scratch, stop, self._slot, page)
+        self._has_reset = has_reset
+        self._ready = False
+        self._send(b"", LOAD_TIMEOUT, "loading and building the controller")
+        if wait:
+            self.wait_ready()
+
+    def wait_ready(self) -> None:
+        """Wait until the child has loaded the script and built the controller."""
+        if self._ready:
+            return
+        kind, body = self._receive()
         if kind != b"I":
             self._fail(f"the controller's process answered {kind!r} when ready was expected")
-        if has_reset and body == b"1":  # the runner checks hasattr(controller, "reset")
+        self._ready = True
+        if self._has_reset and body == b"1":  # the runner checks hasattr(controller, "reset")
             self.reset = self._reset
 
     def step(self, r: Reading) -> tuple[float, float]:
+        self.post(r)
+        return self.collect(r)
+
+    def post(self, r: Reading) -> None:
+        """Hand the child this tick's reading; :meth:`collect` takes its duties later (the
+        runner does its physics meanwhile when the board's compute time delays them)."""
         gyro, accel, ticks, setpoint = r.gyro, r.accel, r.ticks, r.setpoint
-        request = REQUEST.pack(b"S", r.t, gyro[0], gyro[1], gyro[2], accel[0], accel[1],
-                               accel[2], r.battery_v, setpoint.speed, setpoint.turn,
-                               ticks[0], ticks[1])
-        kind, body = self._ask(request, self.step_timeout, "step")
+        self._send(REQUEST.pack(b"S", r.t, gyro[0], gyro[1], gyro[2], accel[0], accel[1],
+                                accel[2], r.battery_v, setpoint.speed, setpoint.turn,
+                                ticks[0], ticks[1]), self.step_timeout, "step")
+
+    def collect(self, r: Reading) -> tuple[float, float]:
+        """The duties answering the last :meth:`post`; logs it sent go into ``r``."""
+        kind, body = self._receive()
         if kind != b"D" or len(body) < DUTIES.size:
             self._fail(f"the controller's process answered {kind!r} to step")
         if len(body) > DUTIES.size:
@@ -187,15 +225,36 @@ class IsolatedController:
     # -- the wire
 
     def _ask(self, request: bytes, timeout: float, call: str) -> tuple[bytes, bytes]:
+        if self._owed:  # a step posted and never collected (the run was cut short)
+            try:
+                self._receive()
+            except ControllerError:
+                pass
+        self._send(request, timeout, call)
+        return self._receive()
+
+    def _send(self, request: bytes, timeout: float, call: str) -> None:
         if self.broken:
             raise ControllerError(self.broken)
         asked = self._asked
         asked[1], asked[2] = timeout, call
         asked[0] = time.monotonic()
-        try:
-            if request:
+        self._owed = True
+        if request and not (self._slot is not None and self._slot.offer(request)):
+            try:
                 os.write(self._out, request)
-            data = os.read(self._in, 65536)
+            except OSError:  # the pipe broke: the child has gone
+                self._owed = False
+                asked[0] = 0.0
+                self._fail(self._timed_out[0] if self._timed_out else self._ended())
+
+    def _receive(self) -> tuple[bytes, bytes]:
+        if self.broken:
+            raise ControllerError(self.broken)
+        asked = self._asked
+        self._owed = False
+        try:
+            data = self._read_reply()
             if len(data) < REPLY_HEAD.size:
                 data = _read_more(self._in, data, REPLY_HEAD.size)
             kind, size = REPLY_HEAD.unpack_from(data)
@@ -220,6 +279,19 @@ class IsolatedController:
                 error.__cause__ = _RemoteTraceback(remote)
             raise error
         return kind, body
+
+    def _read_reply(self) -> bytes:
+        # Waking a process that sleeps in read() costs tens of µs on a virtual machine;
+        # with a core to spare, look for the reply for a short while first. Without
+        # yielding the core: on a busy machine a yield hands it away for a whole time
+        # slice, milliseconds. Measured in bench/isolate_cost.py (DEVELOPERS.md).
+        if self._slot is not None:
+            fd, until = self._in, time.perf_counter() + REPLY_SPIN
+            ready = select.select
+            while not ready((fd,), (), (), 0.0)[0]:
+                if time.perf_counter() > until:
+                    break
+        return os.read(self._in, 65536)
 
     def _ended(self) -> str:
         self.process.join(2.0)
@@ -274,8 +346,15 @@ def _start(process: Any) -> None:
             me._config["daemon"] = True
 
 
-def _shutdown(process: Any, connections: tuple, scratch: str, stop: threading.Event) -> None:
+def _shutdown(process: Any, connections: tuple, scratch: str, stop: threading.Event,
+              slot: wire.RunnerSlot | None, page: str | None) -> None:
     stop.set()
+    if page is not None:
+        slot.close()
+        try:
+            os.unlink(page)
+        except OSError:
+            pass
     for connection in connections:  # end of input: the child leaves by itself
         try:
             connection.close()
@@ -349,13 +428,17 @@ def _encode_logs(logs: dict[str, float]) -> bytes:
 
 
 def _child_main(requests: Any, replies: Any, script: str, config: dict, robot: RobotFacts,
-                seed: int, parent: int, memory_limit: int, scratch: str) -> None:
+                seed: int, parent: int, memory_limit: int, scratch: str,
+                page: str | None) -> None:
     """The child process: load, build, then answer requests until the input ends."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _die_with(parent)
     out = replies.fileno()
     source = requests.fileno()
+    slot = None
     try:
+        if page is not None:
+            slot = wire.ChildSlot(page, REQUEST.size)
         os.chdir(scratch)
         for name in ("pybullet", "pybullet_data"):  # the engine is not the controller's
             sys.modules[name] = None  # type: ignore[assignment]
@@ -374,18 +457,21 @@ def _child_main(requests: Any, replies: Any, script: str, config: dict, robot: R
     unpack, size = REQUEST.unpack, REQUEST.size
     with interrupts.exits_raise():
         _answer(source, out, step, reset, reading, unpack, size, cls,
-                tracked_config(controller))
+                tracked_config(controller), slot)
     os._exit(0)  # past any thread or atexit handler the script left behind
 
 
 def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpack: Any,
-            size: int, cls: type, config: TrackedConfig | None) -> None:
+            size: int, cls: type, config: TrackedConfig | None,
+            slot: wire.ChildSlot | None = None) -> None:
     """Answer requests until the input ends. A copy of this process the script forked
     leaves at once, silently: only the process the parent started may answer."""
     me = os.getpid()
+    from_pipe = partial(_read_exact, source, size)
     while True:
         try:
-            request = _read_exact(source, size)
+            request = (from_pipe() if slot is None
+                       else slot.next_request(source, from_pipe))
         except OSError:
             break
         if request is None:
@@ -406,6 +492,8 @@ def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpa
                 body = DUTIES.pack(left, right) + (_encode_logs(logs) if logs else b"")
             elif kind == b"K":  # which config keys the script has read
                 _send(out, b"K", _encode_reads(config))
+                if slot is not None:
+                    slot.replied_now()
                 continue
             elif kind == b"R":
                 if callable(reset):
@@ -420,6 +508,8 @@ def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpa
             reading.take_logs()
             _send_error(out, err if isinstance(err, ControllerError)
                         else ControllerError(_with_place(failure_text(call, err), err, cls)))
+            if slot is not None:
+                slot.replied_now()
             continue
         if os.getpid() != me:
             os._exit(0)
@@ -427,6 +517,8 @@ def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpa
             _send(out, b"D", body)
         except OSError:
             break
+        if slot is not None:
+            slot.replied_now()
 
 
 def _with_place(text: str, err: BaseException, cls: type) -> str:

@@ -41,7 +41,7 @@ from .control import (
 )
 from .imu import Encoders, Imu
 from .interrupts import deferred, exits_raise, is_user_interrupt
-from .isolate import IsolatedController, build_controller
+from .isolate import IsolatedController, build_controller, start_isolated
 from .metrics import run_figures
 from .rates import nearby_rates
 from .record import PLAY_COLUMNS, RUN_COLUMNS, TraceWriter, write_json, write_yaml
@@ -144,9 +144,25 @@ class Simulation:
             # a Ctrl-C during the set-up waits for it to be whole, so the run can end
             # as interrupted with its summary and (empty) trace like any other
             with deferred():
-                world, writer = self._world_and_writer(folder)
-                with exits_raise():
-                    loop = _Loop(self, world, writer)
+                # an isolated controller's process loads the script meanwhile
+                started = (start_isolated(self.controller_class, s, self.robot_facts)
+                           if s.isolate else None)
+                try:
+                    world, writer = self._world_and_writer(folder)
+                except BaseException:
+                    if started is not None:
+                        started.close()
+                    raise
+                try:
+                    with exits_raise():
+                        loop = _Loop(self, world, writer)
+                except BaseException:
+                    if started is not None:
+                        started.close()
+                    world.close()
+                    writer.close()
+                    raise
+                loop.started = started
         except KeyboardInterrupt:
             interrupted = True
         wall_start = time.perf_counter()
@@ -163,11 +179,13 @@ class Simulation:
                     encoding="utf-8")
         except KeyboardInterrupt:
             loop.status, loop.message = STATUS_INTERRUPTED, "interrupted (Ctrl-C)"
+            loop.keep_pending_row()
         finally:
-            if isinstance(loop.controller, IsolatedController):
-                if s.config:
-                    loop.config_reads = loop.controller.config_reads()
-                loop.controller.close()  # its process and scratch folder
+            isolated = loop.controller or loop.started
+            if isinstance(isolated, IsolatedController):
+                if s.config and loop.controller is not None:
+                    loop.config_reads = isolated.config_reads()
+                isolated.close()  # its process and scratch folder
             try:
                 writer.close()
             finally:
@@ -268,19 +286,30 @@ class _Loop:
         self.config_reads = None  # an isolated controller's config reads, asked at the end
         self.ticks_run = 0
         self.step = 0
+        # An isolated controller whose duties the board's compute time delays answers
+        # while the world advances to their arrival: the tick posts the reading, and the
+        # reply (and the tick's trace row) is taken just before the duties are due.
+        self.pipelined = False
+        self.pending: tuple | None = None  # (arrival step, t, tick step, row parts)
         self.x = 0.0  # distance travelled along the heading (m), trapezoidal from the speed
         self.last_speed = 0.0
         self.controller: Any = None
+        self.started: IsolatedController | None = None  # an isolated controller's process
 
     def run(self) -> None:
         sim = self.sim
-        self.controller = build_controller(sim.controller_class, sim.settings, sim.robot_facts)
+        self.controller = build_controller(sim.controller_class, sim.settings, sim.robot_facts,
+                                           self.started)
+        self.pipelined = (isinstance(self.controller, IsolatedController)
+                          and self.duties.delay_steps > 0)
         if hasattr(self.controller, "reset"):
             _call(self.controller.reset, "reset", 0.0, sim.controller_class)
         for tick in range(self.n_ticks + 1):
             if self.tick(tick) or tick == self.n_ticks:
                 break
             self.advance_to(self.clock.step_of(tick + 1))
+        if self.pending is not None:
+            self.collect()
 
     def tick(self, tick: int) -> bool:
         """One controller tick at the present step; True if the robot fell."""
@@ -302,7 +331,12 @@ class _Loop:
                                                          if self.clock.jittered else
                                                          self.sim.period)
         self.last_speed = speed
-        left, right, raw_l, raw_r = self.control(t, tick, gyro, accel, ticks_lr)
+        if self.pending is not None:  # the last tick's reply, when it is due no earlier
+            self.collect()
+        if self.pipelined:
+            self.post(t, tick, gyro, accel, ticks_lr)
+        else:
+            left, right, raw_l, raw_r = self.control(t, tick, gyro, accel, ticks_lr)
         drive = self.drive
         # the duties due at the bridge now (as the world's next step would take them):
         # the voltage column is what the bridge applies from this tick on
@@ -313,18 +347,27 @@ class _Loop:
         torque_l, torque_r = drive.last_torques
         _, _, rate_l, rate_r = self.world.wheel_state()
         setpoint = self.timeline.setpoint if self.timeline is not None else _STILL
-        row = (
-            t, self.x, pitch, pitch_rate, yaw, speed, left, right,
+        # the row around the controller's duties (columns 7-8 and 37-38)
+        before = (t, self.x, pitch, pitch_rate, yaw, speed)
+        between = (
             drive.current_left, drive.current_right, drive.battery_voltage,
             gyro[0], gyro[1], gyro[2], accel[0], accel[1], accel[2], ticks_lr[0], ticks_lr[1],
             pose[0], pose[1], pose[2], q[0], q[1], q[2], q[3], angle_l, angle_r,
             setpoint.speed, setpoint.turn, drive.duty_left * supply, drive.duty_right * supply,
-            torque_l, torque_r, rate_l, rate_r, raw_l, raw_r, event,
+            torque_l, torque_r, rate_l, rate_r,
         )
-        self.writer.add(row + play if self.backlash else row, self.reading.take_logs())
+        after = (event,) + play if self.backlash else (event,)
+        if self.pipelined:
+            self.pending = (self.step + self.duties.delay_steps, t, self.step,
+                            before, between, after)
+        else:
+            self.writer.add(before + (left, right) + between + (raw_l, raw_r) + after,
+                            self.reading.take_logs())
         self.ticks_run = tick + 1
         if abs(pitch) > self.sim.settings.fall_limit or self.world.body_touching(
                 pitch, tick % 20 == 0):
+            if self.pending is not None:
+                self.collect()
             self.status, self.fell_at = STATUS_FELL, t
             self.message = f"fell at t = {t:.3f} s (pitch {math.degrees(pitch):.1f} deg)"
             return True
@@ -362,6 +405,12 @@ class _Loop:
             raise _failure(err, "step", t, self.sim.controller_class) from err
         if os.getpid() != self.pid:  # a copy the script forked: only the run may go on
             os._exit(0)
+        left, right, raw_l, raw_r = self.checked(out, t)
+        self.duties.send(self.step, left, right)
+        return left, right, raw_l, raw_r
+
+    def checked(self, out: Any, t: float) -> tuple[float, float, float, float]:
+        """What ``step`` returned as duties clipped to [-1, 1] and as returned."""
         try:
             left, right, was_clipped = check_duties(out)
         except Exception as err:  # a returned object whose iteration raises, too
@@ -370,8 +419,44 @@ class _Loop:
         if was_clipped:
             self.clipped += 1
             raw_l, raw_r = _returned_duties(out, left, right)
-        self.duties.send(self.step, left, right)
         return left, right, raw_l, raw_r
+
+    def post(self, t: float, tick: int, gyro, accel, ticks_lr) -> None:
+        """:meth:`control`'s first half for an isolated controller: the reading sent."""
+        r = self.reading
+        r.t, r.gyro, r.accel, r.ticks = t, gyro, accel, ticks_lr
+        if self.clock.jittered:
+            r.dt = self.clock.interval(tick)
+        r.battery_v = self.drive.battery_voltage
+        if self.timeline is not None:
+            r.setpoint = self.timeline.setpoint
+        self.controller.post(r)
+
+    def keep_pending_row(self) -> None:
+        """After a Ctrl-C: the posted tick's row, if its reply still comes (else it is
+        dropped, as a tick cut short in-process would be)."""
+        if self.pending is None:
+            return
+        try:
+            with deferred():
+                self.collect()
+        except (ControllerError, KeyboardInterrupt):
+            self.pending = None
+
+    def collect(self) -> None:
+        """The posted tick's duties sent towards the bridge, and its trace row written."""
+        _, t, tick_step, before, between, after = self.pending
+        self.pending = None
+        try:
+            out = self.controller.collect(self.reading)
+        except BaseException as err:
+            if is_user_interrupt(err):
+                raise
+            raise _failure(err, "step", t, self.sim.controller_class) from err
+        left, right, raw_l, raw_r = self.checked(out, t)
+        self.duties.send(tick_step, left, right)
+        self.writer.add(before + (left, right) + between + (raw_l, raw_r) + after,
+                        self.reading.take_logs())
 
     def advance_to(self, target: int) -> None:
         """Advance the world to the step of the next tick, stopping where something is due."""
@@ -379,8 +464,12 @@ class _Loop:
         step = self.step
         stops = samples.plan(step, target, world)
         while step < target:
+            if self.pending is not None and step >= self.pending[0]:
+                self.collect()  # its duties are due at the bridge now
             duties.deliver(step, drive)
             stop = duties.next_arrival(target)
+            if self.pending is not None and self.pending[0] < stop:
+                stop = self.pending[0]
             for p in stops:
                 if step < p:
                     stop = min(stop, p)
