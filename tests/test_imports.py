@@ -62,9 +62,22 @@ def test_command_help_loads_nothing_heavy():
     assert not loaded & set(HEAVY), loaded & set(HEAVY)
 
 
-def test_inspect_of_a_file_with_unit_strings_loads_pint_but_not_dask_or_scipy():
-    loaded = loaded_after("inspect", str(ROOT / "robots" / "desk-mite.yaml"))
-    assert "pint" in loaded  # the demo file has unit strings: pint is built for them
+def test_inspect_of_a_demo_robot_loads_nothing_heavy():
+    """The demo robots' unit strings are all read from pint's factor table: no pint."""
+    for name in ("desk-mite", "shelf-runner", "tall-mast"):
+        loaded = loaded_after("inspect", str(ROOT / "robots" / f"{name}.yaml"))
+        assert not loaded & set(HEAVY), (name, loaded & set(HEAVY))
+
+
+def test_inspect_of_a_spelling_off_the_table_loads_pint_but_not_dask_or_scipy(tmp_path):
+    """A unit pint alone knows (a furlong) builds pint, still without dask or scipy."""
+    text = (ROOT / "robots" / "desk-mite.yaml").read_text(encoding="utf-8")
+    assert "track: 90 mm" in text
+    path = tmp_path / "furlong.yaml"
+    path.write_text(text.replace("track: 90 mm", "track: 0.00044738725 furlong"),
+                    encoding="utf-8")
+    loaded = loaded_after("inspect", str(path))
+    assert "pint" in loaded
     assert not loaded & {"dask", "matplotlib", "scipy", "pybullet", "jinja2"}
 
 
