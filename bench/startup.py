@@ -35,7 +35,7 @@ def median_seconds(argv: list[str], repeat: int) -> float:
     for _ in range(repeat):
         start = time.perf_counter()
         subprocess.run(argv, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, check=False,
-                       env=ENV)
+                       env=ENV, cwd=ROOT)
         times.append(time.perf_counter() - start)
     return statistics.median(times)
 
@@ -53,7 +53,7 @@ def main() -> None:
     upright = shutil.which("upright") or ""
     cli = [upright] if upright else [sys.executable, "-m", "sandbox.cli"]
     script = upright or sys.executable
-    where = subprocess.run([sys.executable if not upright else _python_of(script), "-c",
+    where = subprocess.run([sys.executable if not upright else _python_of(script), "-P", "-c",
                             "import sandbox; print(sandbox.__file__)"], env=ENV,
                            capture_output=True, text=True, check=True).stdout.strip()
     if Path(where).resolve().parent.parent != ROOT:
