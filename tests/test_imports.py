@@ -106,14 +106,22 @@ def submodules_after(*args: str) -> set[str]:
 
 def test_a_run_without_plots_loads_no_scipy_signal_nor_matplotlib(tmp_path):
     """The IMU's Butterworth filters are designed without scipy.signal (0.65 s to import),
-    scipy.linalg waits for an LQR, the demo robot's units need no pint."""
+    scipy.linalg waits for an LQR, the demo robot's units need no pint, the URDF's quoting
+    no xml.sax (urllib, ssl), the default camera no renderer."""
     loaded = submodules_after("run", str(ROOT / "robots" / "desk-mite.yaml"),
                               str(ROOT / "controllers" / "cascade.py"), "--duration", "0.01",
                               "--no-plots", "--out", str(tmp_path / "run"))
     assert (tmp_path / "run" / "trace.csv").is_file()
     unwanted = {"scipy.signal", "scipy.linalg", "scipy.stats", "matplotlib", "pint", "dask",
-                "jinja2", "rich"}
+                "jinja2", "rich", "xml.sax", "sandbox.render"}
     assert not loaded & unwanted, loaded & unwanted
+
+
+def test_the_default_camera_is_one_the_renderer_knows():
+    """cli._check_camera lets the default 'side' through without importing the renderer."""
+    from sandbox.render.frames import CAMERAS
+
+    assert "side" in CAMERAS
 
 
 def test_a_run_with_plots_loads_matplotlib_but_no_scipy_signal(tmp_path):
