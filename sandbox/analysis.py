@@ -32,7 +32,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import scipy.linalg
 import yaml
 
 from .tables import fmt, table
@@ -265,6 +264,8 @@ def lqr(
     n = A.shape[0]
     B = np.asarray(B, dtype=float).reshape(n, -1)
     Q, R = _checked_weights(n, B.shape[1], Q, R)
+    import scipy.linalg  # here, not at the top: a run imports this module (0.17 s)
+
     try:
         P = scipy.linalg.solve_continuous_are(A, B, Q, R)
     except (np.linalg.LinAlgError, ValueError) as err:
@@ -292,6 +293,8 @@ def zoh_discretise(A: np.ndarray, B: np.ndarray, period: float) -> tuple[np.ndar
     block = np.zeros((n + m, n + m))
     block[:n, :n] = A
     block[:n, n:] = B
+    import scipy.linalg
+
     held = scipy.linalg.expm(block * period)
     return held[:n, :n], held[:n, n:]
 
@@ -310,6 +313,8 @@ def dlqr(
     n = Ad.shape[0]
     Bd = np.asarray(Bd, dtype=float).reshape(n, -1)
     Q, R = _checked_weights(n, Bd.shape[1], Q, R)
+    import scipy.linalg
+
     try:
         P = scipy.linalg.solve_discrete_are(Ad, Bd, Q, R)
     except (np.linalg.LinAlgError, ValueError) as err:

@@ -487,6 +487,8 @@ def _watch_factory(watch: bool, slow_motion: float):
 
 
 def _check_camera(camera: str) -> None:
+    if camera == "side":  # the default, one of CAMERAS: no need to import the renderer (15 ms)
+        return
     from .render.frames import CAMERAS
 
     if camera not in CAMERAS:

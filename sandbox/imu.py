@@ -35,7 +35,8 @@ the ideal ones above, bit for bit):
   is (1 + ``scale_error``)·Rᵀ·v of the true body-axis vector v, before noise.
 - **The sensor's own digital low-pass** (``gyro.bandwidth``,
   ``accel.bandwidth``, ``filter_order``): a Butterworth filter designed once
-  with ``scipy.signal.butter(order, f_c, fs=rate)`` and run at the sample
+  as ``scipy.signal.butter(order, f_c, fs=rate)`` (sandbox.butterworth: the same
+  floats, without importing scipy) and run at the sample
   rate by :meth:`Imu.feed`, which the loop calls at every sample. It filters
   the true (turned, scaled) values; bias, noise and quantisation come after,
   since a sensor's noise density is that of its output.
@@ -145,18 +146,18 @@ class LowPass:
     """
 
     def __init__(self, order: int, cutoff: float, rate: float):
-        from scipy import signal
+        from .butterworth import butter_lowpass, steady_state
 
         if order not in (1, 2):
             raise ValueError(f"filter order must be 1 or 2, got {order!r}")
         if not (math.isfinite(cutoff) and 0 < cutoff < rate / 2):
             raise ValueError(f"filter cut-off must be between 0 and {rate / 2:g} Hz "
                              f"(half the sample rate), got {cutoff!r}")
-        b, a = signal.butter(order, cutoff, fs=rate)
+        b, a = butter_lowpass(order, cutoff, rate)  # scipy's butter's floats
         self.order, self.cutoff, self.rate = order, float(cutoff), float(rate)
         self.b = tuple(float(v) for v in b)
         self.a = tuple(float(v) for v in a)  # a[0] == 1
-        self._unit_state = tuple(float(v) for v in signal.lfilter_zi(b, a))
+        self._unit_state = tuple(float(v) for v in steady_state(b, a))
         self._state: list[list[float]] | None = None
 
     def reset(self, steady: Vector3 | None = None) -> None:

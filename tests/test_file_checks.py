@@ -354,8 +354,9 @@ def test_run_folder_name_is_bounded_and_safe(tmp_path):
 
 
 def test_pint_only_when_a_unit_string_is_met(tmp_path):
-    """Importing sandbox.robot and loading a file of plain numbers never imports pint;
-    the first unit string does."""
+    """Importing sandbox.robot and loading a file of plain numbers never imports pint, nor
+    does a file of the usual unit strings (read from pint's factors, sandbox/unitfactors.py);
+    the first spelling off that table does."""
     plain = BASE
     for old, new in (("80 mm", "0.08"), ("120 mm", "0.12"), ("260 mm", "0.26"), ("180 g", "0.18"),
                      ("-10 mm", "-0.01"), ("260 g", "0.26"), ("[50 mm, 60 mm, 30 mm]",
@@ -368,7 +369,9 @@ def test_pint_only_when_a_unit_string_is_met(tmp_path):
     path.write_text(plain, encoding="utf-8")
     code = ("import sys; from sandbox.robot import load_robot; s = load_robot(sys.argv[1]); "
             "s.warnings; assert 'pint' not in sys.modules, 'pint imported'; "
-            "load_robot(sys.argv[2]); assert 'pint' in sys.modules")
+            "load_robot(sys.argv[2]); assert 'pint' not in sys.modules, 'pint for the demo'; "
+            "from sandbox.units import to_si; to_si('2 furlong', 'length'); "
+            "assert 'pint' in sys.modules")
     done = subprocess.run([sys.executable, "-c", code, str(path),
                            str(ROOT / "robots" / "desk-mite.yaml")],
                           capture_output=True, text=True, timeout=120)

@@ -347,8 +347,9 @@ def test_ctrl_c_at_any_moment_ends_with_130_and_keeps_what_was_recorded(
     import time
 
     out = tmp_path / "run"
+    # 300 s: still running when the last signal comes (a 30 s run now ends in about 2 s)
     process = subprocess.Popen(
-        [sys.executable, "-m", "sandbox.cli", "run", ROBOT, CASCADE, "--duration", "30",
+        [sys.executable, "-m", "sandbox.cli", "run", ROBOT, CASCADE, "--duration", "300",
          "--out", str(out), "--no-plots"], cwd=ROOT, stdout=subprocess.DEVNULL,
         stderr=subprocess.PIPE, env={**os.environ, "PYTHONPATH": str(ROOT)},
         preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))

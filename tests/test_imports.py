@@ -1,6 +1,7 @@
 """Start-up rules (issue 13 item 2): `upright --help` and `upright inspect` load none of the
 heavy libraries they do not need. Each case runs in a fresh interpreter, imports sandbox.cli,
-runs the command and lists what ended up in sys.modules. No engine runs here."""
+runs the command and lists what ended up in sys.modules. Only the last tests run the engine
+(a 0.01 s run)."""
 
 from __future__ import annotations
 
@@ -62,9 +63,22 @@ def test_command_help_loads_nothing_heavy():
     assert not loaded & set(HEAVY), loaded & set(HEAVY)
 
 
-def test_inspect_of_a_file_with_unit_strings_loads_pint_but_not_dask_or_scipy():
-    loaded = loaded_after("inspect", str(ROOT / "robots" / "desk-mite.yaml"))
-    assert "pint" in loaded  # the demo file has unit strings: pint is built for them
+def test_inspect_of_a_demo_robot_loads_nothing_heavy():
+    """The demo robots' unit strings are all read from pint's factor table: no pint."""
+    for name in ("desk-mite", "shelf-runner", "tall-mast"):
+        loaded = loaded_after("inspect", str(ROOT / "robots" / f"{name}.yaml"))
+        assert not loaded & set(HEAVY), (name, loaded & set(HEAVY))
+
+
+def test_inspect_of_a_spelling_off_the_table_loads_pint_but_not_dask_or_scipy(tmp_path):
+    """A unit pint alone knows (a furlong) builds pint, still without dask or scipy."""
+    text = (ROOT / "robots" / "desk-mite.yaml").read_text(encoding="utf-8")
+    assert "track: 90 mm" in text
+    path = tmp_path / "furlong.yaml"
+    path.write_text(text.replace("track: 90 mm", "track: 0.00044738725 furlong"),
+                    encoding="utf-8")
+    loaded = loaded_after("inspect", str(path))
+    assert "pint" in loaded
     assert not loaded & {"dask", "matplotlib", "scipy", "pybullet", "jinja2"}
 
 
@@ -79,3 +93,41 @@ def test_the_si_file_describes_the_same_robot(tmp_path):
     original = load_robot(ROOT / "robots" / "desk-mite.yaml")
     copy = load_robot(si_robot_file(tmp_path))
     assert copy.to_si_dict() == original.to_si_dict()
+
+
+def submodules_after(*args: str) -> set[str]:
+    """Modules (first two parts of each dotted name) loaded after ``upright ARGS``."""
+    probe = PROBE.replace('name.split(".")[0]', '".".join(name.split(".")[:2])')
+    done = subprocess.run([sys.executable, "-c", probe, *args], capture_output=True,
+                          text=True, timeout=120, cwd=ROOT)
+    assert done.returncode == 0, done.stderr
+    return set(json.loads(done.stdout.strip().splitlines()[-1]))
+
+
+def test_a_run_without_plots_loads_no_scipy_signal_nor_matplotlib(tmp_path):
+    """The IMU's Butterworth filters are designed without scipy.signal (0.65 s to import),
+    scipy.linalg waits for an LQR, the demo robot's units need no pint, the URDF's quoting
+    no xml.sax (urllib, ssl), the default camera no renderer."""
+    loaded = submodules_after("run", str(ROOT / "robots" / "desk-mite.yaml"),
+                              str(ROOT / "controllers" / "cascade.py"), "--duration", "0.01",
+                              "--no-plots", "--out", str(tmp_path / "run"))
+    assert (tmp_path / "run" / "trace.csv").is_file()
+    unwanted = {"scipy.signal", "scipy.linalg", "scipy.stats", "matplotlib", "pint", "dask",
+                "jinja2", "rich", "xml.sax", "sandbox.render"}
+    assert not loaded & unwanted, loaded & unwanted
+
+
+def test_the_default_camera_is_one_the_renderer_knows():
+    """cli._check_camera lets the default 'side' through without importing the renderer."""
+    from sandbox.render.frames import CAMERAS
+
+    assert "side" in CAMERAS
+
+
+def test_a_run_with_plots_loads_matplotlib_but_no_scipy_signal(tmp_path):
+    loaded = submodules_after("run", str(ROOT / "robots" / "desk-mite.yaml"),
+                              str(ROOT / "controllers" / "cascade.py"), "--duration", "0.01",
+                              "--out", str(tmp_path / "run"))
+    assert (tmp_path / "run" / "plots.png").is_file()
+    assert "matplotlib" in loaded
+    assert not loaded & {"scipy.signal", "scipy.linalg", "pint", "dask"}

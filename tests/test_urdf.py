@@ -5,16 +5,19 @@ from __future__ import annotations
 import math
 import xml.etree.ElementTree as ET
 from pathlib import Path
+from xml.sax import saxutils
 
 import numpy as np
 import pybullet as pb
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from ideal_parts import ideal_robot
 from scipy.special import ellipk
 
 from sandbox.inertia import cylinder_inertia_y
 from sandbox.robot import RobotSpec, load_robot
-from sandbox.urdf import BODY_LINK, WHEEL_JOINTS, robot_urdf
+from sandbox.urdf import BODY_LINK, WHEEL_JOINTS, quoteattr, robot_urdf
 from sandbox.world import LOAD_FLAGS
 
 ROBOTS_DIR = Path(__file__).resolve().parents[1] / "robots"
@@ -253,3 +256,11 @@ def test_hanging_body_swings_with_the_compound_pendulum_period(tmp_path, name, s
     assert abs(start) == pytest.approx(amplitude, abs=1e-9), "starting swing angle"
     assert measured == pytest.approx(expected, rel=5e-3), (
         f"{name}: swing period {measured:.6f} s, compound pendulum {expected:.6f} s")
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(st.text(alphabet=st.sampled_from(list("ab <>&\"'\n\r\t;#x")), max_size=12) | st.text())
+def test_attribute_quoting_is_the_standard_librarys(text):
+    """sandbox.urdf.quoteattr is xml.sax.saxutils.quoteattr (the reference), string for
+    string."""
+    assert quoteattr(text) == saxutils.quoteattr(text)
