@@ -53,9 +53,11 @@ def _worker_start(parent: int) -> None:
     import signal
 
     from .interrupts import end_with_parent
+    from .wire import no_spare_core
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     end_with_parent(parent)
+    no_spare_core()  # the pool fills the cores: isolated controllers wait on their pipes
 
 
 def run_suite(spec: RobotSpec, settings: RunSettings, folder: Path, *,

@@ -439,3 +439,42 @@ def test_no_helper_process_outlives_a_killed_sweep(cluster: list[str], tmp_path:
     for line in left:  # leave the machine clean even when the check fails
         os.kill(int(line.split()[0]), signal.SIGKILL)
     assert not left, left
+
+
+@pytest.mark.slow
+def test_a_dask_worker_started_again_after_a_crash_is_guarded_too() -> None:
+    """A local cluster's worker killed (as a controller might): the one its nanny starts
+    in its place also watches upright's process and knows the pool fills the cores."""
+    import signal
+    import time
+
+    from sandbox.sweep.executors import DaskCluster
+
+    def guarded() -> tuple[int, bool, bool]:
+        import threading
+
+        from sandbox import wire
+
+        return (os.getpid(), wire._pool_worker,
+                any(t.name == "upright-parent-watch" for t in threading.enumerate()))
+
+    cluster = DaskCluster(None, "local", 1)
+    try:
+        (first,) = cluster.client.run(guarded).values()
+        assert first[1:] == (True, True)
+        os.kill(first[0], signal.SIGKILL)
+        deadline = time.monotonic() + 60
+        again = None
+        while time.monotonic() < deadline:
+            try:
+                answers = list(cluster.client.run(guarded).values())
+            except Exception:  # noqa: BLE001 - the worker is still coming back
+                answers = []
+            if answers and answers[0][0] != first[0]:
+                again = answers[0]
+                break
+            time.sleep(0.5)
+        assert again is not None, "the nanny started a new worker"
+        assert again[1:] == (True, True)
+    finally:
+        cluster.close()

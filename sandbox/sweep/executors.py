@@ -88,8 +88,10 @@ def _install_common(common: RunCommon, parent: int | None = None) -> None:
     # Ctrl-C belongs to the parent, which cancels the sweep; a worker finishes its run.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from ..interrupts import end_with_parent
+    from ..wire import no_spare_core
 
     end_with_parent(parent)
+    no_spare_core()  # the pool fills the cores: isolated controllers wait on their pipes
 
 
 def _run_installed(job: PointJob) -> dict:
@@ -189,11 +191,12 @@ class DaskCluster:
                                             processes=True, dashboard_address=None,
                                             silence_logs=logging.ERROR)
                 self.client = Client(self.cluster)
-            from ..interrupts import end_with_parent
+            from .dask_guard import LocalWorkerGuard
 
             # the workers (children of this process: a local cluster's nannies live in
-            # it) leave when it dies, however it dies: no cluster runs on orphaned
-            self.client.run(end_with_parent, os.getpid())
+            # it) leave when it dies, however it dies: no cluster runs on orphaned. A
+            # plugin, so that a worker the nanny starts again after a crash does too.
+            self.client.register_plugin(LocalWorkerGuard(os.getpid()))
         else:
             self.client = Client(address)
             self.client.wait_for_workers(1, timeout=60)
