@@ -5,6 +5,10 @@ process plus its children) and the cost per controller tick.
 
     python bench/isolate_cost.py [ROBOT] [ROUNDS]
 
+Two ways: with the shared request page (a single run on a machine with a core to spare)
+and through the pipe only (as in pool, suite and Dask workers). CPU time counts the
+controller's process too (read from /proc: it is the fork server's child).
+
 Target (issue 12): isolated at most 1.15 x in-process.
 """
 
@@ -20,14 +24,32 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from sandbox import wire  # noqa: E402
+from sandbox.isolate import IsolatedController  # noqa: E402
 from sandbox.robot import load_robot  # noqa: E402
 from sandbox.runner import RunSettings  # noqa: E402
 from sandbox.session import run_once  # noqa: E402
 
+_CONTROLLER_CPU = [0.0]  # s used by isolated controllers' processes (children of the
+# fork server, not of this process: read from /proc before each one ends)
+_close = IsolatedController.close
+
+
+def _close_counting(self) -> None:
+    try:
+        fields = Path(f"/proc/{self.process.pid}/stat").read_text().rsplit(")", 1)[1].split()
+        _CONTROLLER_CPU[0] += (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError, TypeError):
+        pass
+    _close(self)
+
+
+IsolatedController.close = _close_counting
+
 
 def _cpu() -> float:
     t = os.times()
-    return t.user + t.system + t.children_user + t.children_system
+    return t.user + t.system + t.children_user + t.children_system + _CONTROLLER_CPU[0]
 
 
 def one_run(spec, settings: RunSettings) -> tuple[float, float, float, int]:
@@ -49,22 +71,25 @@ def main() -> None:
     base = RunSettings(controller=str(ROOT / "controllers" / "cascade.py"), duration=10.0)
     one_run(spec, base)  # warm caches, the fork server
     one_run(spec, replace(base, isolate=True))
-    wholes, walls, cpus, per_tick = [], [], [], []
-    for _ in range(rounds):
-        here_whole, here_wall, here_cpu, ticks = one_run(spec, base)
-        box_whole, box_wall, box_cpu, _ = one_run(spec, replace(base, isolate=True))
-        wholes.append(box_whole / here_whole)
-        walls.append(box_wall / here_wall)
-        cpus.append(box_cpu / here_cpu)
-        per_tick.append((box_whole - here_whole) / ticks * 1e6)
-        print(f"round: whole run in-process {here_whole:.3f} s, isolated {box_whole:.3f} s; "
-              f"loop {here_wall:.3f} s, {box_wall:.3f} s", flush=True)
-    print(f"isolated / in-process, whole run: median {statistics.median(wholes):.3f} "
-          f"(range {min(wholes):.3f}-{max(wholes):.3f}); loop alone "
-          f"{statistics.median(walls):.3f}; CPU time {statistics.median(cpus):.3f}; cost per "
-          f"tick {statistics.median(per_tick):.0f} us (target <= 1.15); os.getloadavg "
-          f"{os.getloadavg()[0]:.1f}")
-
+    for mode in ("shared page", "pipe only"):
+        # "pipe only" is what pool, suite and Dask workers use (sandbox.wire)
+        wire._pool_worker = mode == "pipe only"
+        wholes, walls, cpus, per_tick = [], [], [], []
+        for _ in range(rounds):
+            here_whole, here_wall, here_cpu, ticks = one_run(spec, base)
+            box_whole, box_wall, box_cpu, _ = one_run(spec, replace(base, isolate=True))
+            wholes.append(box_whole / here_whole)
+            walls.append(box_wall / here_wall)
+            cpus.append(box_cpu / here_cpu)
+            per_tick.append((box_whole - here_whole) / ticks * 1e6)
+            print(f"round ({mode}): whole run in-process {here_whole:.3f} s, isolated "
+                  f"{box_whole:.3f} s; loop {here_wall:.3f} s, {box_wall:.3f} s", flush=True)
+        print(f"{mode}: isolated / in-process, whole run: median "
+              f"{statistics.median(wholes):.3f} (range {min(wholes):.3f}-{max(wholes):.3f}); "
+              f"loop alone {statistics.median(walls):.3f}; CPU time "
+              f"{statistics.median(cpus):.3f}; cost per tick "
+              f"{statistics.median(per_tick):.0f} us (target <= 1.15); os.getloadavg "
+              f"{os.getloadavg()[0]:.1f}", flush=True)
 
 if __name__ == "__main__":
     main()
