@@ -188,7 +188,18 @@ class Backlash:
         wheel = wheel_angle
         total = 0.0
         for _ in range(design.substeps):
-            torque = contact_torque(motor - wheel, motor_rate - wheel_rate, half_gap, k, c)
+            # contact_torque written out (8 calls a physics step otherwise); same floats
+            play = motor - wheel
+            if play > half_gap:
+                torque = k * (play - half_gap) + c * (motor_rate - wheel_rate)
+                if not torque > 0.0:
+                    torque = 0.0
+            elif play < -half_gap:
+                torque = k * (play + half_gap) + c * (motor_rate - wheel_rate)
+                if not torque < 0.0:
+                    torque = 0.0
+            else:
+                torque = 0.0
             motor_acc = (motor_torque - torque) * inverse_inertia
             wheel_acc = free_acceleration + mobility * torque
             # constant acceleration over the sub-step (exact in free flight)

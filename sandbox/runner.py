@@ -460,23 +460,25 @@ class _Loop:
 
     def advance_to(self, target: int) -> None:
         """Advance the world to the step of the next tick, stopping where something is due."""
-        world, drive, duties, samples = self.world, self.drive, self.duties, self.samples
+        world, drive, samples = self.world, self.drive, self.samples
+        next_duties, advance = self.duties.deliver_then_next, world.advance
+        reached = samples.reached
         step = self.step
-        stops = samples.plan(step, target, world)
+        stops = samples.plan(step, target, world)  # ascending, within (step, target)
+        stop_index, stop_count = 0, len(stops)
         while step < target:
             if self.pending is not None and step >= self.pending[0]:
                 self.collect()  # its duties are due at the bridge now
-            duties.deliver(step, drive)
-            stop = duties.next_arrival(target)
+            stop = next_duties(step, drive, target)
             if self.pending is not None and self.pending[0] < stop:
                 stop = self.pending[0]
-            for p in stops:
-                if step < p:
-                    stop = min(stop, p)
-                    break
-            world.advance(stop - step, drive)
+            while stop_index < stop_count and stops[stop_index] <= step:
+                stop_index += 1
+            if stop_index < stop_count and stops[stop_index] < stop:
+                stop = stops[stop_index]
+            advance(stop - step, drive)
             step = stop
-            samples.reached(step, target, world)
+            reached(step, target, world)
         samples.end_period(target, world)
         self.step = step
 

@@ -99,6 +99,17 @@ class DutyLine:
             _, left, right = pending.popleft()
             drive.set_duty(left, right)
 
+    def deliver_then_next(self, step: int, drive: Any, limit: int) -> int:
+        """:meth:`deliver` at ``step``, then :meth:`next_arrival` before ``limit`` (one call
+        for the loop, which makes it at every stop)."""
+        pending = self._pending
+        while pending and pending[0][0] <= step:
+            _, left, right = pending.popleft()
+            drive.set_duty(left, right)
+        if pending and pending[0][0] < limit:
+            return pending[0][0]
+        return limit
+
     def next_arrival(self, limit: int) -> int:
         """The next arrival step, or ``limit`` if none arrives before it."""
         pending = self._pending
@@ -235,6 +246,18 @@ class ImuSamples:
         """The world has stopped at ``step`` on its way to ``target``: read what is due."""
         due = self.due
         if step != target and (step in due or step + 1 in due):
+            if not self.coupled and hasattr(world, "imu_sample"):
+                # the same numbers in one pass (World.imu_sample)
+                truth, velocity = world.imu_sample(self.mount, self.before.get(step),
+                                                   self.gravity, self.dt)
+                if step + 1 in due:
+                    self.before[step + 1] = velocity
+                if step in due:
+                    if self.filtering:
+                        truth = self.imu.feed(*truth)
+                        self.last_fed = step
+                    self.truths[step] = truth
+                return
             here = world.body_state()
             if step + 1 in due:
                 self.before[step + 1] = here.point_velocity(self.mount)

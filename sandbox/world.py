@@ -646,17 +646,17 @@ class World:
         first step uses the reads of the present instant if the controller
         tick already made them.
         """
-        (robot, joints, client, dt, inv_dt, j, (pitch_gain, wheels_gain), read, read_body,
-         push_body, apply, step, torque_mode, world_frame) = self._hot_names
-        motors = drive.step
-        ax, ay, az = self._axle_axis
-        last = self._last_rates
         if self._push is not None:
             self._advance_pushed(steps, drive)
             return
         if self._gearbox is not None:
             self._advance_geared(steps, drive)
             return
+        (robot, joints, client, dt, inv_dt, j, (pitch_gain, wheels_gain), read, read_body,
+         push_body, apply, step, torque_mode, world_frame) = self._hot_names
+        motors = drive.step
+        ax, ay, az = self._axle_axis
+        last = self._last_rates
         joints_now, velocity_now = self._joints_now, self._velocity_now
         self._joints_now = self._velocity_now = None
         for _ in range(steps):
@@ -742,19 +742,20 @@ class World:
         conserved with no further torque."""
         robot, joints, client = self.robot_id, self.wheel_joints, self.client
         gear, dt = self._gearbox, self.dt
+        motor_rate, motors, contacts = gear.motor_rate, drive.step, gear.step
+        read, apply, step, torque_mode = (pb.getJointStates, pb.setJointMotorControlArray,
+                                          pb.stepSimulation, pb.TORQUE_CONTROL)
         joints_now = self._joints_now
         self._forget_reads()
-        for _ in range(steps):
+        for _ in range(steps):  # names bound above: this runs every physics step
             if joints_now is None:
-                joints_now = pb.getJointStates(robot, joints, physicsClientId=client)
-            (angle_left, rate_left), (angle_right, rate_right) = (j[:2] for j in joints_now)
+                joints_now = read(robot, joints, physicsClientId=client)
+            left, right = joints_now
             joints_now = None
-            motor_left, motor_right = gear.motor_rates()
-            torques = drive.step(motor_left, motor_right, dt)
-            contact = gear.step(torques, (angle_left, angle_right), (rate_left, rate_right))
-            pb.setJointMotorControlArray(robot, joints, pb.TORQUE_CONTROL, forces=contact,
-                                         physicsClientId=client)
-            pb.stepSimulation(physicsClientId=client)
+            torques = motors(motor_rate[0], motor_rate[1], dt)
+            contact = contacts(torques, (left[0], right[0]), (left[1], right[1]))
+            apply(robot, joints, torque_mode, forces=contact, physicsClientId=client)
+            step(physicsClientId=client)
 
     def _gravity_torque(self) -> float:
         """Gravity's torque on the body about the axle axis now (N·m, + leaning forward)."""
@@ -806,6 +807,52 @@ class World:
         return BodyState(axle, rotation, com, velocity, omega, quat,
                          (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
                           velocity[2] + ox * dy - oy * dx))
+
+    def imu_sample(self, mount: Vector, before: Vector | None, gravity: Vector,
+                   dt: float) -> tuple[tuple[Vector, Vector], Vector]:
+        """An IMU sample's truth now, and the mount point's velocity (world, m/s).
+
+        The truth is ``(body rate, specific force)`` in body axes, the force from the
+        mount point's velocity change since ``before`` (its velocity one step ago, or
+        None: gravity alone): bit for bit what :func:`sandbox.schedule.imu_truth` gives
+        from :meth:`body_state`, in one pass, since between ticks it runs at every IMU
+        sample (every physics step for a filtered 1 kHz IMU).
+        """
+        c = self.client
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
+        velocity_now = self._velocity_now
+        if velocity_now is None:
+            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
+                                                                   physicsClientId=c)
+        (vx, vy, vz), (ox, oy, oz) = velocity_now
+        r = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
+        if not self._identity_inertial:
+            r = _matmul(r, self._body_from_inertial)
+        r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
+        self._axle_axis = (r1, r4, r7)
+        # (the operations of body_state, _point_velocity and to_body, in their order)
+        lx, ly, lz = self._com_local_tuple
+        cx, cy, cz = com
+        axle_x = cx - (r0 * lx + r1 * ly + r2 * lz)
+        axle_y = cy - (r3 * lx + r4 * ly + r5 * lz)
+        axle_z = cz - (r6 * lx + r7 * ly + r8 * lz)
+        mx, my, mz = mount
+        dx = axle_x + r0 * mx + r1 * my + r2 * mz - cx
+        dy = axle_y + r3 * mx + r4 * my + r5 * mz - cy
+        dz = axle_z + r6 * mx + r7 * my + r8 * mz - cz
+        v = (vx + oy * dz - oz * dy, vy + oz * dx - ox * dz, vz + ox * dy - oy * dx)
+        gx, gy, gz = gravity
+        if before is None:
+            fx, fy, fz = -gx, -gy, -gz
+        else:
+            fx = (v[0] - before[0]) / dt - gx
+            fy = (v[1] - before[1]) / dt - gy
+            fz = (v[2] - before[2]) / dt - gz
+        rate = (r0 * ox + r3 * oy + r6 * oz, r1 * ox + r4 * oy + r7 * oz,
+                r2 * ox + r5 * oy + r8 * oz)
+        force = (r0 * fx + r3 * fy + r6 * fz, r1 * fx + r4 * fy + r7 * fz,
+                 r2 * fx + r5 * fy + r8 * fz)
+        return (rate, force), v
 
     def tick_sense(self, mount: Vector) -> tuple:
         """What a controller tick records of the true state now, in one pass.
