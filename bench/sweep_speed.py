@@ -124,8 +124,10 @@ def main() -> None:
     parser.add_argument("--reuse-only", action="store_true",
                         help="only the fresh against kept worlds comparison")
     parser.add_argument("--reuse-repeats", type=int, default=3)
+    parser.add_argument("--robot", type=Path, default=ROOT / "robots" / "shelf-runner.yaml",
+                        help="robot file (default: the demo shelf-runner as written)")
     args = parser.parse_args()
-    spec = load_robot(ROOT / "robots" / "shelf-runner.yaml")
+    spec = load_robot(args.robot)
     print(f"load average before: {os.getloadavg()[0]:.2f}")
     reuse_rounds(spec, args.points, args.reuse_repeats)
     if args.reuse_only:
