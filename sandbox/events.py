@@ -17,6 +17,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from .control import Setpoint
+from .ground import Ground, Patch, Rough, Step
 from .robot import (
     AngularSpeed,
     Fraction,
@@ -27,7 +28,6 @@ from .robot import (
     _si,
     describe_error,
 )
-from .world import Ground, Patch, Rough, Step
 from .yamlfile import YamlFileError, read_yaml_file
 
 GRAVITY = 9.80665

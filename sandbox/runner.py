@@ -39,6 +39,7 @@ from .control import (
     unread_key_text,
     unread_keys,
 )
+from .ground import Ground
 from .imu import Encoders, Imu
 from .interrupts import deferred, exits_raise, is_user_interrupt
 from .isolate import IsolatedController, build_controller, start_isolated
@@ -47,7 +48,7 @@ from .rates import nearby_rates
 from .record import PLAY_COLUMNS, RUN_COLUMNS, TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
 from .schedule import DutyLine, ImuSamples, TickClock, imu_truth
-from .world import Ground, World
+from .world import World
 
 _STILL = Setpoint()  # the setpoint of a run without a test: stand still
 
@@ -581,8 +582,8 @@ def run(spec: RobotSpec, settings: RunSettings, folder: Path | None = None,
     sim = Simulation(spec, settings, ground=ground, timeline=timeline,
                      world_factory=world_factory)
     if folder is not None:
+        from .ground import ground_record
         from .urdf import robot_urdf
-        from .world import ground_record
 
         folder.mkdir(parents=True, exist_ok=True)
         extra = dict(extra_record or {})

@@ -11,13 +11,25 @@ import math
 import os
 import tempfile
 from contextlib import contextmanager
-from dataclasses import dataclass
-from typing import NamedTuple
 
 import numpy as np
 
 from .analysis import PlanarParams
+from .bodystate import BodyState, Vector, _add, _cross, _matmul, _point_velocity
 from .gearbox import Backlash, ContactDesign, CouplingGains
+from .ground import (
+    FLOOR_COLOUR,
+    FLOOR_EXTENT,
+    FLOOR_HALF_WIDTH,
+    PATCH_COLOUR,
+    ROUGH_EXTENT,
+    ROUGH_HALF_WIDTH,
+    STEP_COLOUR,
+    Ground,
+    Rough,
+    floor_pieces,
+    rough_heights,
+)
 from .inertia import cylinder_inertia_y
 from .robot import RobotSpec
 from .urdf import WHEEL_JOINTS, robot_urdf, wheel_of
@@ -93,231 +105,9 @@ def window_snapshot(client: int, width: int = 320, height: int = 240) -> np.ndar
     return np.reshape(np.asarray(rgba, dtype=np.uint8), (height, width, 4))[..., :3]
 
 
-@dataclass(frozen=True)
-class Patch:
-    """A stretch of floor with its own friction, from ``start`` to ``end`` m along x."""
-
-    start: float
-    end: float
-    friction: float
-
-
-@dataclass(frozen=True)
-class Step:
-    """A raised strip across the floor (a door threshold): its near edge at ``at`` m."""
-
-    at: float
-    height: float
-    length: float = 0.03
-
-
-@dataclass(frozen=True)
-class Rough:
-    """Uneven floor: smoothed random heights of about ``amplitude`` m, bumps ``wavelength`` m."""
-
-    amplitude: float
-    wavelength: float
-    seed: int = 0
-
-
-@dataclass(frozen=True)
-class Ground:
-    """The floor: friction (wheel on floor), rolling resistance coefficient, slope and features.
-
-    ``slope`` (rad) tilts the floor about the world y axis so that driving
-    forward (+x) climbs it. Positions of patches and steps are along the floor.
-    """
-
-    friction: float = 0.9
-    rolling_resistance: float = 0.0
-    slope: float = 0.0
-    # Bullet's torsional friction on the wheels' line contacts skews the pitch dynamics
-    # (tall-mast's free fall 7 % fast at 0.001): off unless a test asks for it.
-    spinning_friction: float = 0.0
-    patches: tuple[Patch, ...] = ()
-    steps: tuple[Step, ...] = ()
-    rough: Rough | None = None
-
-
-def ground_record(ground: Ground) -> dict:
-    """Plain data describing a Ground (SI units), for run.yaml and replay."""
-    return {
-        "friction": ground.friction,
-        "rolling_resistance": ground.rolling_resistance,
-        "slope_rad": ground.slope,
-        "patches": [[p.start, p.end, p.friction] for p in ground.patches],
-        "steps": [[s.at, s.height, s.length] for s in ground.steps],
-        "rough": None if ground.rough is None else [ground.rough.amplitude,
-                                                    ground.rough.wavelength, ground.rough.seed],
-    }
-
-
-def ground_from_record(data: dict | None) -> Ground | None:
-    """The Ground that :func:`ground_record` described (None if no record)."""
-    if not data:
-        return None
-    rough = data.get("rough")
-    return Ground(
-        friction=float(data.get("friction", 0.9)),
-        rolling_resistance=float(data.get("rolling_resistance", 0.0)),
-        slope=float(data.get("slope_rad", 0.0)),
-        patches=tuple(Patch(*p) for p in data.get("patches", [])),
-        steps=tuple(Step(*s) for s in data.get("steps", [])),
-        rough=None if not rough else Rough(rough[0], rough[1], int(rough[2])),
-    )
-
-
-FLOOR_COLOUR = (0.82, 0.80, 0.74, 1.0)
-PATCH_COLOUR = (0.55, 0.72, 0.86, 1.0)
-STEP_COLOUR = (0.45, 0.40, 0.36, 1.0)
-FLOOR_HALF_WIDTH = 5.0  # m across the robot's path
-FLOOR_EXTENT = (-20.0, 40.0)  # m along the path
-ROUGH_EXTENT = (-1.0, 8.0)
-ROUGH_HALF_WIDTH = 0.6
-
-
-def floor_pieces(ground: Ground) -> list[tuple[float, float, float]]:
-    """The flat floor split at patch edges: (start m, end m, friction) along x, in order."""
-    cuts = {FLOOR_EXTENT[0], FLOOR_EXTENT[1]}
-    for patch in ground.patches:
-        cuts.update((patch.start, patch.end))
-    edges = sorted(c for c in cuts if FLOOR_EXTENT[0] <= c <= FLOOR_EXTENT[1])
-    pieces = []
-    for a, b in zip(edges[:-1], edges[1:]):
-        if b - a < 1e-6:
-            continue
-        middle = 0.5 * (a + b)
-        friction = ground.friction
-        for patch in ground.patches:  # a later patch wins where patches overlap
-            if patch.start <= middle <= patch.end:
-                friction = patch.friction
-        pieces.append((a, b, friction))
-    return pieces
-
-
-def gaussian_smooth_wrapped(values: np.ndarray, sigma: float, truncate: float = 4.0) -> np.ndarray:
-    """Gaussian smoothing of a grid along each axis in turn, wrapping at the edges.
-
-    The same numbers, to the last bit, as ``scipy.ndimage.gaussian_filter(values,
-    sigma, mode="wrap", truncate=truncate)`` (its kernel, its order of sums; tested),
-    in plain numpy: importing scipy.ndimage costs a fifth of a second of every run on
-    rough floor. ``sigma`` in grid cells.
-    """
-    radius = int(truncate * float(sigma) + 0.5)
-    x = np.arange(-radius, radius + 1)
-    weights = np.exp(-0.5 / (sigma * sigma) * x ** 2)
-    weights = weights / weights.sum()
-    out = np.asarray(values, dtype=float)
-    for axis in range(out.ndim):
-        source, out = out, out * weights[radius]
-        for j in range(radius, 0, -1):  # outermost taps first, as scipy sums them
-            out = out + (np.roll(source, j, axis) + np.roll(source, -j, axis)) * weights[radius - j]
-    return out
-
-
-def rough_heights(rough: Rough, spacing: float, extent=ROUGH_EXTENT,
-                  half_width: float = ROUGH_HALF_WIDTH) -> np.ndarray:
-    """Heights (m) on a grid, rows along x: smoothed seeded noise scaled to ±amplitude.
-
-    The first half metre ramps up from flat so the robot starts on level floor.
-    """
-    rng = np.random.default_rng(rough.seed)
-    nx = int(round((extent[1] - extent[0]) / spacing)) + 1
-    ny = int(round(2 * half_width / spacing)) + 1
-    noise = rng.standard_normal((nx, ny))
-    heights = gaussian_smooth_wrapped(noise, rough.wavelength / (4.0 * spacing))
-    peak = float(np.max(np.abs(heights)))
-    heights *= rough.amplitude / peak if peak > 0 else 0.0
-    x = extent[0] + spacing * np.arange(nx)
-    ramp = np.clip((x - 0.1) / 0.4, 0.0, 1.0)
-    return heights * ramp[:, None]
-
-
-Vector = tuple[float, float, float]
-Matrix = tuple[float, float, float, float, float, float, float, float, float]  # row-major
-
-
-class BodyState(NamedTuple):
-    """True state at one instant, world frame: positions m, velocities m/s, rates rad/s.
-
-    Plain tuples rather than numpy arrays, and a named tuple rather than a
-    dataclass: the loop makes one every controller tick, and tiny arrays or a
-    frozen dataclass's constructor cost more than the arithmetic.
-    """
-
-    axle: Vector  # axle-centre position
-    rotation: Matrix  # body frame -> world, row-major 3×3
-    com: Vector  # body centre-of-mass position
-    velocity: Vector  # body centre-of-mass velocity
-    angular_velocity: Vector  # world axes
-    com_orientation: tuple[float, float, float, float]  # pybullet's base quaternion (replay)
-    axle_velocity: Vector
-
-    @property
-    def pitch(self) -> float:
-        """Rotation about body y, + when the top leans forward (rad)."""
-        r = self.rotation
-        return math.atan2(-r[6], math.hypot(r[7], r[8]))
-
-    @property
-    def yaw(self) -> float:
-        r = self.rotation
-        return math.atan2(r[3], r[0])
-
-    @property
-    def pitch_rate(self) -> float:
-        """Body angular rate about its own y axis (rad/s), what a gyro's y axis sees."""
-        r, w = self.rotation, self.angular_velocity
-        return w[0] * r[1] + w[1] * r[4] + w[2] * r[7]
-
-    def to_body(self, vector: Vector) -> Vector:
-        """A world vector in body axes (Rᵀ v)."""
-        r = self.rotation
-        x, y, z = vector
-        return (r[0] * x + r[3] * y + r[6] * z, r[1] * x + r[4] * y + r[7] * z,
-                r[2] * x + r[5] * y + r[8] * z)
-
-    def to_world(self, vector: Vector) -> Vector:
-        """A body vector in world axes (R v)."""
-        r = self.rotation
-        x, y, z = vector
-        return (r[0] * x + r[1] * y + r[2] * z, r[3] * x + r[4] * y + r[5] * z,
-                r[6] * x + r[7] * y + r[8] * z)
-
-    def point_velocity(self, local_point: Vector) -> Vector:
-        """World velocity of a point fixed in the body, given in body coordinates (m)."""
-        return _point_velocity(self, self.velocity, self.angular_velocity, local_point)
-
-
-def _point_velocity(state: BodyState, velocity: Vector, omega: Vector, point: Vector) -> Vector:
-    """v + ω × (p − com) for a point p fixed in the body (body coordinates, from the axle
-    centre) at the pose of ``state``; written out, as it runs every controller tick."""
-    r, (ax, ay, az), (cx, cy, cz) = state.rotation, state.axle, state.com
-    x, y, z = point
-    dx = ax + r[0] * x + r[1] * y + r[2] * z - cx
-    dy = ay + r[3] * x + r[4] * y + r[5] * z - cy
-    dz = az + r[6] * x + r[7] * y + r[8] * z - cz
-    ox, oy, oz = omega
-    return (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
-            velocity[2] + ox * dy - oy * dx)
-
-
 def cylinder_axle_inertia(wheel) -> float:
     """A wheel's inertia about its axle (kg·m², solid cylinder, m r²/2)."""
     return float(cylinder_inertia_y(wheel.mass, wheel.radius, wheel.width)[1, 1])
-
-
-def _cross(a: Vector, b: Vector) -> Vector:
-    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
-
-
-def _add(a: Vector, b: Vector) -> Vector:
-    return (a[0] + b[0], a[1] + b[1], a[2] + b[2])
-
-
-def _matmul(a: Matrix, b: Matrix) -> Matrix:
-    return tuple(sum(a[3 * i + k] * b[3 * k + j] for k in range(3))
-                 for i in range(3) for j in range(3))
 
 
 class _HeldTorques:

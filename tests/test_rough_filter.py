@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy.ndimage import gaussian_filter
 
-from sandbox.world import gaussian_smooth_wrapped
+from sandbox.ground import gaussian_smooth_wrapped
 
 
 @pytest.mark.parametrize("sigma", [0.1, 0.6, 1.5, 3.7, 10.0, 50.0])

@@ -17,21 +17,20 @@ import pytest
 
 from sandbox.actuators import DriveTrain
 from sandbox.events import EventSpec, Timeline
-from sandbox.robot import load_robot
-from sandbox.world import (
+from sandbox.ground import (
     FLOOR_EXTENT,
     ROUGH_EXTENT,
     Ground,
     Patch,
     Rough,
     Step,
-    World,
     floor_pieces,
     ground_from_record,
     ground_record,
-    pb,
     rough_heights,
 )
+from sandbox.robot import load_robot
+from sandbox.world import World, pb
 
 ROOT = Path(__file__).resolve().parents[1]
 SHELF_RUNNER = ROOT / "robots" / "shelf-runner.yaml"

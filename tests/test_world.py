@@ -15,8 +15,9 @@ from ideal_parts import ideal_robot
 from scipy.optimize import least_squares, minimize_scalar
 
 from sandbox.analysis import PlanarParams, duty_input_model, open_loop_poles, torque_input_model
+from sandbox.ground import Ground
 from sandbox.runner import RunSettings, Simulation, run
-from sandbox.world import Ground, World
+from sandbox.world import World
 
 ROOT = Path(__file__).resolve().parents[1]
 ROBOT_FILES = sorted((ROOT / "robots").glob("*.yaml"))

@@ -7,8 +7,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..ground import ground_from_record
 from ..robot import robot_from_dict
-from ..world import World, ground_from_record, pb, quiet
+from ..world import World, pb, quiet
 from .frames import RenderJob
 from .overlay import OverlayLayout, draw_overlay
 

@@ -13,7 +13,8 @@ from __future__ import annotations
 from collections import OrderedDict
 from typing import Any
 
-from ..world import Ground, World, shape_key
+from ..ground import Ground
+from ..world import World, shape_key
 
 # Worlds kept per worker: a sweep or tuning over a few tests alternates between their
 # grounds. Each engine connection holds about 30 MB.
