@@ -141,6 +141,7 @@ class IsolatedController:
         # with a core to spare, requests go through a shared page (sandbox.wire)
         page = wire.new_page() if wire.spare_core() else None
         self._slot = wire.RunnerSlot(page) if page else None
+        self._page = page  # its name, until the child has mapped it
         context = _context()
         request_r, request_w = context.Pipe(duplex=False)
         reply_r, reply_w = context.Pipe(duplex=False)
@@ -179,6 +180,12 @@ class IsolatedController:
         if kind != b"I":
             self._fail(f"the controller's process answered {kind!r} when ready was expected")
         self._ready = True
+        if self._page is not None:  # both ends have it mapped: no name left behind
+            try:
+                os.unlink(self._page)
+            except OSError:
+                pass
+            self._page = None
         if self._has_reset and body == b"1":  # the runner checks hasattr(controller, "reset")
             self.reset = self._reset
 

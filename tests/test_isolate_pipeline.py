@@ -177,3 +177,23 @@ def test_a_child_that_keeps_finding_requests_late_gives_up_the_page(tmp_path: Pa
     finally:
         runner.close()
         os.unlink(path)
+
+
+def test_no_shared_page_is_left_behind(tmp_path: Path) -> None:
+    """The page's name is removed once the child has it mapped, so even a killed run
+    leaves nothing in /dev/shm."""
+    import glob
+
+    folder = "/dev/shm" if Path("/dev/shm").is_dir() else None
+    if folder is None or not wire.spare_core():
+        pytest.skip("no shared page on this machine")
+    from sandbox.control import RobotFacts
+    from sandbox.isolate import IsolatedController
+
+    before = set(glob.glob(f"{folder}/upright-wire-*"))
+    spec = load_robot(SHELF_RUNNER)
+    controller = IsolatedController(CASCADE, {}, RobotFacts.from_spec(spec, 200.0, 1e-3))
+    try:
+        assert set(glob.glob(f"{folder}/upright-wire-*")) == before
+    finally:
+        controller.close()
