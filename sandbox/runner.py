@@ -389,13 +389,7 @@ class _Loop:
 
         Returns the duties (clipped to [-1, 1]) and the duties as returned (before clipping).
         """
-        r = self.reading
-        r.t, r.gyro, r.accel, r.ticks = t, gyro, accel, ticks_lr
-        if self.clock.jittered:
-            r.dt = self.clock.interval(tick)
-        r.battery_v = self.drive.battery_voltage
-        if self.timeline is not None:
-            r.setpoint = self.timeline.setpoint
+        r = self.fill_reading(t, tick, gyro, accel, ticks_lr)
         try:
             out = self.controller.step(r)
         except BaseException as err:  # SystemExit too; the user's Ctrl-C goes on
@@ -422,8 +416,8 @@ class _Loop:
             raw_l, raw_r = _returned_duties(out, left, right)
         return left, right, raw_l, raw_r
 
-    def post(self, t: float, tick: int, gyro, accel, ticks_lr) -> None:
-        """:meth:`control`'s first half for an isolated controller: the reading sent."""
+    def fill_reading(self, t: float, tick: int, gyro, accel, ticks_lr) -> Reading:
+        """This tick's reading, in the one Reading the run hands its controller."""
         r = self.reading
         r.t, r.gyro, r.accel, r.ticks = t, gyro, accel, ticks_lr
         if self.clock.jittered:
@@ -431,7 +425,11 @@ class _Loop:
         r.battery_v = self.drive.battery_voltage
         if self.timeline is not None:
             r.setpoint = self.timeline.setpoint
-        self.controller.post(r)
+        return r
+
+    def post(self, t: float, tick: int, gyro, accel, ticks_lr) -> None:
+        """:meth:`control`'s first half for an isolated controller: the reading sent."""
+        self.controller.post(self.fill_reading(t, tick, gyro, accel, ticks_lr))
 
     def keep_pending_row(self) -> None:
         """After a Ctrl-C: the posted tick's row, if its reply still comes (else it is

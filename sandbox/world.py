@@ -598,6 +598,21 @@ class World:
                          (velocity[0] + oy * dz - oz * dy, velocity[1] + oz * dx - ox * dz,
                           velocity[2] + ox * dy - oy * dx))
 
+    def _pose_now(self) -> tuple:
+        """The engine's reads of the body now: (com, quaternion, velocity, angular velocity,
+        rotation of the body frame, row-major); the velocity is kept for the instant."""
+        c = self.client
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
+        velocity_now = self._velocity_now
+        if velocity_now is None:
+            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
+                                                                   physicsClientId=c)
+        r = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
+        if not self._identity_inertial:
+            r = _matmul(r, self._body_from_inertial)
+        self._axle_axis = (r[1], r[4], r[7])
+        return com, quat, velocity_now[0], velocity_now[1], r
+
     def imu_sample(self, mount: Vector, before: Vector | None, gravity: Vector,
                    dt: float) -> tuple[tuple[Vector, Vector], Vector]:
         """An IMU sample's truth now, and the mount point's velocity (world, m/s).
@@ -608,18 +623,8 @@ class World:
         from :meth:`body_state`, in one pass, since between ticks it runs at every IMU
         sample (every physics step for a filtered 1 kHz IMU).
         """
-        c = self.client
-        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
-        velocity_now = self._velocity_now
-        if velocity_now is None:
-            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
-                                                                   physicsClientId=c)
-        (vx, vy, vz), (ox, oy, oz) = velocity_now
-        r = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
-        if not self._identity_inertial:
-            r = _matmul(r, self._body_from_inertial)
+        com, quat, (vx, vy, vz), (ox, oy, oz), r = self._pose_now()
         r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
-        self._axle_axis = (r1, r4, r7)
         # (the operations of body_state, _point_velocity and to_body, in their order)
         lx, ly, lz = self._com_local_tuple
         cx, cy, cz = com
@@ -657,18 +662,8 @@ class World:
         keep the velocity before that step). Written out as one function because it
         runs every tick, where a chain of small calls costs more than the arithmetic.
         """
-        c = self.client
-        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
-        velocity_now = self._velocity_now
-        if velocity_now is None:
-            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
-                                                                   physicsClientId=c)
-        (vx, vy, vz), (ox, oy, oz) = velocity_now
-        r = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
-        if not self._identity_inertial:
-            r = _matmul(r, self._body_from_inertial)
+        com, quat, (vx, vy, vz), (ox, oy, oz), r = self._pose_now()
         r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
-        self._axle_axis = (r1, r4, r7)
         # (the same operations, in the same order, as body_state, forward_speed and the
         # runner's IMU truth: the numbers are identical to the last bit)
         lx, ly, lz = self._com_local_tuple
@@ -703,7 +698,7 @@ class World:
         joints = self._joints_now
         if joints is None:
             joints = self._joints_now = pb.getJointStates(self.robot_id, self.wheel_joints,
-                                                          physicsClientId=c)
+                                                          physicsClientId=self.client)
         return (
             math.atan2(-r6, math.hypot(r7, r8)),
             ox * r1 + oy * r4 + oz * r7,
