@@ -575,22 +575,7 @@ class World:
     # ------------------------------------------------------------- true state
     def body_state(self) -> BodyState:
         """The body's true pose and velocity now (world frame)."""
-        c = self.client
-        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
-        velocity_now = self._velocity_now
-        if velocity_now is None:
-            velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
-                                                                   physicsClientId=c)
-        velocity, omega = velocity_now
-        rotation = pb.getMatrixFromQuaternion(quat, physicsClientId=c)
-        if not self._identity_inertial:
-            rotation = _matmul(rotation, self._body_from_inertial)
-        lx, ly, lz = self._com_local_tuple
-        r = rotation
-        axle = (com[0] - (r[0] * lx + r[1] * ly + r[2] * lz),
-                com[1] - (r[3] * lx + r[4] * ly + r[5] * lz),
-                com[2] - (r[6] * lx + r[7] * ly + r[8] * lz))
-        self._axle_axis = (r[1], r[4], r[7])
+        com, quat, velocity, omega, rotation, axle = self._pose_now()
         # axle velocity = v + ω × (axle − com), written out
         ox, oy, oz = omega
         dx, dy, dz = axle[0] - com[0], axle[1] - com[1], axle[2] - com[2]
@@ -600,7 +585,8 @@ class World:
 
     def _pose_now(self) -> tuple:
         """The engine's reads of the body now: (com, quaternion, velocity, angular velocity,
-        rotation of the body frame, row-major); the velocity is kept for the instant."""
+        rotation of the body frame (row-major), axle centre), world frame; the velocity is
+        kept for the instant. The axle as :meth:`body_state` computes it, to the bit."""
         c = self.client
         com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
         velocity_now = self._velocity_now
@@ -611,7 +597,11 @@ class World:
         if not self._identity_inertial:
             r = _matmul(r, self._body_from_inertial)
         self._axle_axis = (r[1], r[4], r[7])
-        return com, quat, velocity_now[0], velocity_now[1], r
+        lx, ly, lz = self._com_local_tuple
+        axle = (com[0] - (r[0] * lx + r[1] * ly + r[2] * lz),
+                com[1] - (r[3] * lx + r[4] * ly + r[5] * lz),
+                com[2] - (r[6] * lx + r[7] * ly + r[8] * lz))
+        return com, quat, velocity_now[0], velocity_now[1], r, axle
 
     def imu_sample(self, mount: Vector, before: Vector | None, gravity: Vector,
                    dt: float) -> tuple[tuple[Vector, Vector], Vector]:
@@ -623,14 +613,11 @@ class World:
         from :meth:`body_state`, in one pass, since between ticks it runs at every IMU
         sample (every physics step for a filtered 1 kHz IMU).
         """
-        com, quat, (vx, vy, vz), (ox, oy, oz), r = self._pose_now()
+        (com, quat, (vx, vy, vz), (ox, oy, oz), r,
+         (axle_x, axle_y, axle_z)) = self._pose_now()
         r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
-        # (the operations of body_state, _point_velocity and to_body, in their order)
-        lx, ly, lz = self._com_local_tuple
         cx, cy, cz = com
-        axle_x = cx - (r0 * lx + r1 * ly + r2 * lz)
-        axle_y = cy - (r3 * lx + r4 * ly + r5 * lz)
-        axle_z = cz - (r6 * lx + r7 * ly + r8 * lz)
+        # (the operations of body_state, _point_velocity and to_body, in their order)
         mx, my, mz = mount
         dx = axle_x + r0 * mx + r1 * my + r2 * mz - cx
         dy = axle_y + r3 * mx + r4 * my + r5 * mz - cy
@@ -662,15 +649,12 @@ class World:
         keep the velocity before that step). Written out as one function because it
         runs every tick, where a chain of small calls costs more than the arithmetic.
         """
-        com, quat, (vx, vy, vz), (ox, oy, oz), r = self._pose_now()
+        (com, quat, (vx, vy, vz), (ox, oy, oz), r,
+         (axle_x, axle_y, axle_z)) = self._pose_now()
         r0, r1, r2, r3, r4, r5, r6, r7, r8 = r
+        cx, cy, cz = com
         # (the same operations, in the same order, as body_state, forward_speed and the
         # runner's IMU truth: the numbers are identical to the last bit)
-        lx, ly, lz = self._com_local_tuple
-        cx, cy, cz = com
-        axle_x = cx - (r0 * lx + r1 * ly + r2 * lz)
-        axle_y = cy - (r3 * lx + r4 * ly + r5 * lz)
-        axle_z = cz - (r6 * lx + r7 * ly + r8 * lz)
         dx, dy, dz = axle_x - cx, axle_y - cy, axle_z - cz
         # forward speed: the axle centre's velocity along (axle axis × floor normal)
         nx, ny, nz = self._floor_normal
