@@ -29,6 +29,7 @@ import numpy as np
 import yaml
 
 from . import tracefile
+from .interrupts import deferred
 from .tracefile import (
     COLUMNS,
     DRIVE_COLUMNS,
@@ -227,12 +228,14 @@ class _WritingProcess:
         return not self.broken and self.owner == os.getpid() and self.process.poll() is None
 
     def send(self, data: bytes, path: Path | None = None) -> None:
-        with self.lock:
+        # a Ctrl-C waits until the message is whole: one landing mid-write would leave
+        # the stream out of step, and the trace could not be closed any more
+        with self.lock, deferred():
             self._write(data, path)
 
     def ask(self, data: bytes) -> dict:
-        """Send a message and wait for its reply."""
-        with self.lock:
+        """Send a message and wait for its reply (a Ctrl-C waits for the reply)."""
+        with self.lock, deferred():
             self._write(data)
             try:
                 reply = read_message(self.process.stdout)
