@@ -186,3 +186,34 @@ def test_without_a_writing_process_the_trace_is_written_here(tmp_path, monkeypat
     empty = TraceWriter(tmp_path / "empty.csv")
     empty.close()
     assert (tmp_path / "empty.csv").read_text().strip() == ",".join(COLUMNS)
+
+
+def test_a_ctrl_c_mid_message_waits_until_the_message_is_whole(tmp_path, monkeypatch):
+    """SIGINT arriving while a block of rows is being written to the writing process: the
+    KeyboardInterrupt comes once the message is whole, so the trace still closes with
+    every row (it used to leave the stream out of step: 'the trace-writing process is
+    gone', exit 2 instead of 130)."""
+    writer = TraceWriter(tmp_path / "trace.csv", block_rows=10)
+    rows = _rows(25)
+    process = record.writing_process()
+    real_write = process.process.stdin.write
+    hit = []
+
+    def write_with_a_signal(data):
+        if not hit:  # the first block: the signal lands between its two halves
+            hit.append(True)
+            half = len(data) // 2
+            real_write(data[:half])
+            os.kill(os.getpid(), signal.SIGINT)
+            return real_write(data[half:])
+        return real_write(data)
+
+    monkeypatch.setattr(process.process.stdin, "write", write_with_a_signal)
+    added = 0
+    with pytest.raises(KeyboardInterrupt):
+        for row in rows:
+            added += 1  # the row that flushes the block is in it when the signal comes
+            writer.add(row, {})
+    assert hit and process.usable(), "the stream is still in step"
+    writer.close()
+    assert read_trace(tmp_path / "trace.csv")["t_s"].size == added
