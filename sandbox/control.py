@@ -16,7 +16,6 @@ read, failure texts), :mod:`sandbox.duties` (checking what ``step`` returned) an
 
 from __future__ import annotations
 
-from .contract import _GOOD_LOG_NAMES as _GOOD_LOG_NAMES  # the same set object
 from .contract import MAX_LOG_NAME_LENGTH as MAX_LOG_NAME_LENGTH
 from .contract import (
     ControllerError,
@@ -25,7 +24,6 @@ from .contract import (
     RobotFacts,
     Setpoint,
 )
-from .contract import _check_log_name as _check_log_name  # sandbox.isolate checks names too
 from .duties import check_duties, duty_floats
 from .helpers import GRAVITY as GRAVITY
 from .helpers import (

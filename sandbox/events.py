@@ -16,7 +16,7 @@ from typing import Annotated, Any, Literal
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from .control import Setpoint
+from .contract import Setpoint
 from .ground import Ground, Patch, Rough, Step
 from .robot import (
     AngularSpeed,

@@ -45,15 +45,17 @@ from typing import Any
 import numpy as np
 
 from . import interrupts, wire
-from .control import (
+from .contract import (
     _GOOD_LOG_NAMES,
     ControllerError,
     Reading,
     RobotFacts,
     Setpoint,
-    TrackedConfig,
     _check_log_name,
-    duty_floats,
+)
+from .duties import duty_floats
+from .scripts import (
+    TrackedConfig,
     failure_text,
     load_controller_class,
     make_controller,
@@ -529,7 +531,7 @@ def _answer(source: int, out: int, step: Any, reset: Any, reading: Reading, unpa
 
 
 def _with_place(text: str, err: BaseException, cls: type) -> str:
-    from .control import script_location
+    from .scripts import script_location
 
     where = script_location(err, cls)
     return f"{text} ({where})" if where else text

@@ -26,19 +26,8 @@ import numpy as np
 
 from . import __version__
 from .actuators import DriveTrain
-from .control import (
-    ControllerError,
-    Reading,
-    RobotFacts,
-    Setpoint,
-    check_duties,
-    controller_rate,
-    failure_error,
-    load_controller_class,
-    tracked_config,
-    unread_key_text,
-    unread_keys,
-)
+from .contract import ControllerError, Reading, RobotFacts, Setpoint
+from .duties import check_duties
 from .ground import Ground
 from .imu import Encoders, Imu
 from .interrupts import deferred, exits_raise, is_user_interrupt
@@ -48,6 +37,14 @@ from .rates import nearby_rates
 from .record import PLAY_COLUMNS, RUN_COLUMNS, TraceWriter, write_json, write_yaml
 from .robot import RobotSpec
 from .schedule import DutyLine, ImuSamples, TickClock, imu_truth
+from .scripts import (
+    controller_rate,
+    failure_error,
+    load_controller_class,
+    tracked_config,
+    unread_key_text,
+    unread_keys,
+)
 from .world import World
 
 _STILL = Setpoint()  # the setpoint of a run without a test: stand still

@@ -15,7 +15,8 @@ from typing import Any
 import numpy as np
 
 from ..analysis import PlanarParams, analyze, duty_input_model, equivalent_poles
-from ..control import RobotFacts, controller_rate, load_controller_class
+from ..contract import RobotFacts
+from ..scripts import controller_rate, load_controller_class
 from ..tables import fmt, table
 from .loop import (
     POLE_AT_ONE,

@@ -25,14 +25,9 @@ from typing import Any
 import numpy as np
 import scipy.signal
 
-from ..control import (
-    ControllerError,
-    Reading,
-    RobotFacts,
-    check_duties,
-    failure_error,
-    make_controller,
-)
+from ..contract import ControllerError, Reading, RobotFacts
+from ..duties import check_duties
+from ..scripts import failure_error, make_controller
 from ..units import STANDARD_GRAVITY
 from .loop import SENSOR_NAMES, ControllerModel
 

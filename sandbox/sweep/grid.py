@@ -100,8 +100,8 @@ def split_controller(controller: str) -> tuple[str, str | None]:
 def make_common(spec: RobotSpec, settings: RunSettings, tests: Sequence[str | None],
                 duration_given: bool) -> RunCommon:
     """The shared part of every run; fails early on a controller or test that will not load."""
-    from ..control import load_controller_class
     from ..events import BUILTIN_NAMES, resolve_test
+    from ..scripts import load_controller_class
 
     load_controller_class(settings.controller)  # ControllerLoadError now, not in a worker
     path, class_name = split_controller(settings.controller)

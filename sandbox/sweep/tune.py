@@ -257,7 +257,8 @@ def starting_gains(spec: RobotSpec, settings: RunSettings, keys: Sequence[str],
                    start: Mapping[str, float]) -> dict[str, float]:
     """Start values: given > the config > the controller's attribute of the same name
     after construction (the default it worked out for this robot)."""
-    from ..control import RobotFacts, controller_rate, load_controller_class, make_controller
+    from ..contract import RobotFacts
+    from ..scripts import controller_rate, load_controller_class, make_controller
 
     given = {(k if k.startswith(CONFIG_PREFIX) else CONFIG_PREFIX + k): float(v)
              for k, v in start.items()}
