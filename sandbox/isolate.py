@@ -161,6 +161,7 @@ class IsolatedController:
         # The time limit costs the tick nothing: a watchdog thread kills a child that has
         # owed an answer for too long, and the blocked read then ends.
         self._owed = False  # a request sent whose reply is not yet read
+        self._on_page = False  # the last request went through the shared page
         self._asked = [0.0, 0.0, ""]  # monotonic time asked (0: nothing owed), limit, call
         self._timed_out: list[str] = []
         stop = threading.Event()
@@ -249,7 +250,8 @@ class IsolatedController:
         asked[1], asked[2] = timeout, call
         asked[0] = time.monotonic()
         self._owed = True
-        if request and not (self._slot is not None and self._slot.offer(request)):
+        self._on_page = self._slot is not None and bool(request) and self._slot.offer(request)
+        if request and not self._on_page:
             try:
                 os.write(self._out, request)
             except OSError:  # the pipe broke: the child has gone
@@ -294,7 +296,7 @@ class IsolatedController:
         # with a core to spare, look for the reply for a short while first. Without
         # yielding the core: on a busy machine a yield hands it away for a whole time
         # slice, milliseconds. Measured in bench/isolate_cost.py (DEVELOPERS.md).
-        if self._slot is not None:
+        if self._on_page:  # (a child waiting on the pipe is on a busy machine: no spin)
             fd, until = self._in, time.perf_counter() + REPLY_SPIN
             ready = select.select
             while not ready((fd,), (), (), 0.0)[0]:

@@ -197,3 +197,19 @@ def test_no_shared_page_is_left_behind(tmp_path: Path) -> None:
         assert set(glob.glob(f"{folder}/upright-wire-*")) == before
     finally:
         controller.close()
+
+
+def test_a_busy_machine_has_no_core_to_spare(monkeypatch) -> None:
+    """The page is used only while the load average leaves more than half a core free
+    (two cores here), never in a pool worker."""
+    if not hasattr(wire.os, "sched_getaffinity"):
+        pytest.skip("no CPU affinity on this platform")
+    monkeypatch.setattr(wire.os, "sched_getaffinity", lambda pid: {0, 1})
+    monkeypatch.setattr(wire.platform, "machine", lambda: "x86_64")
+    monkeypatch.setattr(wire.os, "getloadavg", lambda: (1.2, 1.0, 1.0))
+    assert wire.spare_core()
+    monkeypatch.setattr(wire.os, "getloadavg", lambda: (1.6, 1.0, 1.0))
+    assert not wire.spare_core()
+    monkeypatch.setattr(wire.os, "getloadavg", lambda: (0.0, 0.0, 0.0))
+    monkeypatch.setattr(wire, "_pool_worker", True)
+    assert not wire.spare_core()
