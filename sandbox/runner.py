@@ -288,7 +288,7 @@ class _Loop:
         # while the world advances to their arrival: the tick posts the reading, and the
         # reply (and the tick's trace row) is taken just before the duties are due.
         self.pipelined = False
-        self.pending: tuple | None = None  # (arrival step, t, tick step, row parts)
+        self.pending: tuple | None = None  # (arrival step, t, tick step, tick, row parts)
         self.x = 0.0  # distance travelled along the heading (m), trapezoidal from the speed
         self.last_speed = 0.0
         self.controller: Any = None
@@ -356,7 +356,7 @@ class _Loop:
         )
         after = (event,) + play if self.backlash else (event,)
         if self.pipelined:
-            self.pending = (self.step + self.duties.delay_steps, t, self.step,
+            self.pending = (self.step + self.duties.delay_steps, t, self.step, tick,
                             before, between, after)
         else:
             self.writer.add(before + (left, right) + between + (raw_l, raw_r) + after,
@@ -441,15 +441,16 @@ class _Loop:
 
     def collect(self) -> None:
         """The posted tick's duties sent towards the bridge, and its trace row written."""
-        _, t, tick_step, before, between, after = self.pending
+        _, t, tick_step, tick, before, between, after = self.pending
         self.pending = None
         try:
             out = self.controller.collect(self.reading)
+            left, right, raw_l, raw_r = self.checked(out, t)
         except BaseException as err:
-            if is_user_interrupt(err):
+            self.ticks_run = tick  # as in-process: a tick whose step failed is not run
+            if is_user_interrupt(err) or isinstance(err, ControllerError):
                 raise
             raise _failure(err, "step", t, self.sim.controller_class) from err
-        left, right, raw_l, raw_r = self.checked(out, t)
         self.duties.send(tick_step, left, right)
         self.writer.add(before + (left, right) + between + (raw_l, raw_r) + after,
                         self.reading.take_logs())

@@ -55,6 +55,7 @@ def test_a_fall_keeps_the_last_tick(tmp_path: Path) -> None:
                                        tilt=0.2), tmp_path)
     assert here.status == isolated.status == "fell"
     assert here.summary["fell_at_s"] == isolated.summary["fell_at_s"]
+    assert here.summary["duration_s"] == isolated.summary["duration_s"]
     assert (here.folder / "trace.csv").read_bytes() == (
         isolated.folder / "trace.csv").read_bytes()
 
@@ -66,6 +67,7 @@ def test_a_failing_step_ends_at_the_same_tick(tmp_path: Path) -> None:
     here, isolated = _both(settings, tmp_path)
     assert here.status == isolated.status == "controller_error"
     assert "deliberate failure" in isolated.message
+    assert here.summary["duration_s"] == isolated.summary["duration_s"]
     assert (here.folder / "trace.csv").read_bytes() == (
         isolated.folder / "trace.csv").read_bytes()
 
