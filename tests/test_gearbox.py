@@ -221,3 +221,59 @@ def test_cascade_still_balances_with_one_and_a_half_degrees_of_play(name):
                                     tilt=math.radians(3.0), seed=7))
     assert outcome.status == "completed", f"{name}: {outcome.summary}"
     assert outcome.summary["max_abs_pitch_deg"] < 5.0, "tilt stays near upright (deg)"
+
+
+def _reference_side(backlash: Backlash, side: int, motor_torque: float, wheel_angle: float,
+                    wheel_rate: float) -> float:
+    """One side's step as first written, through ``contact_torque`` (the loop now has it
+    written out): the same operations, for the bit-for-bit check below."""
+    design = backlash.design
+    mobility = design.wheel_mobility
+    measured = (wheel_rate - backlash._wheel_rate[side]) / backlash.dt
+    backlash._wheel_acceleration[side] = measured - mobility * backlash._torque[side]
+    backlash._wheel_rate[side] = wheel_rate
+    inverse_inertia = 1.0 / design.motor_inertia
+    half_gap, k, c, h = backlash._half_gap, design.stiffness, design.damping, backlash._h
+    free_acceleration = backlash._wheel_acceleration[side]
+    motor, motor_rate = backlash.motor_angle[side], backlash.motor_rate[side]
+    wheel = wheel_angle
+    total = 0.0
+    for _ in range(design.substeps):
+        torque = contact_torque(motor - wheel, motor_rate - wheel_rate, half_gap, k, c)
+        motor_acc = (motor_torque - torque) * inverse_inertia
+        wheel_acc = free_acceleration + mobility * torque
+        motor += h * (motor_rate + 0.5 * h * motor_acc)
+        motor_rate += h * motor_acc
+        wheel += h * (wheel_rate + 0.5 * h * wheel_acc)
+        wheel_rate += h * wheel_acc
+        total += torque
+    backlash.motor_angle[side], backlash.motor_rate[side] = motor, motor_rate
+    backlash._torque[side] = total / design.substeps
+    return backlash._torque[side]
+
+
+def test_the_written_out_contact_gives_contact_torques_floats():
+    """Backlash.step (contact written out for speed) against the same step through
+    contact_torque, bit for bit, over 2,000 random steps through and out of the play
+    (random torques and wheel motion: the dead-zone model of Nordin & Gutman, 2002)."""
+    design = ContactDesign.for_step(math.radians(1.5), 2e-4, 400.0, 1e-3)
+    fast, slow = Backlash(design, 1e-3), Backlash(design, 1e-3)
+    rng = np.random.default_rng(5)
+    angles = np.zeros(2)
+    rates = np.zeros(2)
+    touching = open_gap = 0
+    for _ in range(2000):
+        torques = tuple(float(v) for v in rng.normal(0.0, 0.05, 2))
+        rates = rates + rng.normal(0.0, 0.5, 2)
+        angles = angles + rates * 1e-3
+        a, r = tuple(float(v) for v in angles), tuple(float(v) for v in rates)
+        got = fast.step(torques, a, r)
+        if not slow._started:
+            slow.start(a, r)
+        want = tuple(_reference_side(slow, side, torques[side], a[side], r[side])
+                     for side in (0, 1))
+        assert got == want
+        assert fast.motor_angle == slow.motor_angle and fast.motor_rate == slow.motor_rate
+        touching += sum(t != 0.0 for t in got)
+        open_gap += sum(t == 0.0 for t in got)
+    assert touching > 200 and open_gap > 200, (touching, open_gap)

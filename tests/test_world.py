@@ -190,3 +190,27 @@ def test_upright_robot_reads_plus_g_within_noise():
                                err_msg=f"mean specific force at rest (tolerance {tolerance:.3f})")
     # and the readings are noisy, not the bare truth
     assert np.std(tr["accel_x_m_s2"]) > 0.1 * white, "accelerometer noise missing"
+
+
+def test_imu_sample_in_one_pass_equals_the_separate_reads():
+    """World.imu_sample gives, bit for bit, imu_truth of body_state and the mount point's
+    velocity from BodyState.point_velocity (rigid-body kinematics v + ω × r), on a robot
+    tilted and driven so every term is non-zero."""
+    from sandbox.schedule import imu_truth
+
+    spec = ideal_robot("shelf-runner")
+    world = World(spec, tilt=0.1)
+    try:
+        mount, gravity, dt = (0.01, -0.005, 0.08), world.gravity_vector(), world.dt
+        before = None
+        for step in range(60):
+            world.step(0.02 * math.sin(step / 7.0), -0.01)
+            state = world.body_state()
+            want_truth = imu_truth(state, mount, gravity, before, dt)
+            want_velocity = state.point_velocity(mount)
+            world._forget_reads()  # read the engine afresh, as the loop does after a step
+            truth, velocity = world.imu_sample(mount, before, gravity, dt)
+            assert truth == want_truth and velocity == want_velocity
+            before = velocity
+    finally:
+        world.close()
