@@ -1,0 +1,132 @@
+"""The engine renders only the window around what it draws: the same pixels as a full frame.
+
+The window's projection is an off-axis frustum (glFrustum, OpenGL 2.1 reference
+pages [memory]); pybullet matrices are column-major 4×4 as
+computeProjectionMatrixFOV returns them (float32 values).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from sandbox import render
+from sandbox.render.scene import EMPTY_DEPTH, sub_projection
+from sandbox.robot import load_robot
+from sandbox.runner import RunSettings, run
+from sandbox.world import pb
+
+ROOT = Path(__file__).resolve().parents[1]
+ROBOT = ROOT / "robots" / "shelf-runner.yaml"
+CONTROLLER = ROOT / "controllers" / "cascade.py"
+SIZE = (320, 240)
+FPS = 10.0
+
+
+@pytest.fixture(scope="module")
+def run_folder(tmp_path_factory) -> Path:
+    """A recorded 1.5 s run of shelf-runner (5° start tilt, so it rolls and pitches)."""
+    folder = tmp_path_factory.mktemp("crop") / "run"
+    settings = RunSettings(controller=str(CONTROLLER), duration=1.5, tilt=math.radians(5.0))
+    result = run(load_robot(ROBOT), settings, folder=folder)
+    assert result.status == "completed", result.message
+    return folder
+
+
+def test_full_window_is_the_fov_projection_and_a_window_is_the_frustum():
+    """For the whole frame sub_projection gives computeProjectionMatrixFOV's 16 values bit for
+    bit; for a window it equals glFrustum(l, r, b, t, n, f) built here in double from the
+    same field of view and near/far planes, to float32 precision (pybullet's own values are
+    float32, so 1e-6 relative)."""
+    width, height, near, far = 320, 240, 0.02, 32.0
+    full = pb.computeProjectionMatrixFOV(render.FIELD_OF_VIEW_DEG, width / height, near, far)
+    assert sub_projection(full, (0, 0, width, height), (width, height)) == list(full)
+    c0, r0, c1, r1 = 37, 11, 201, 190
+    top = near * math.tan(math.radians(render.FIELD_OF_VIEW_DEG / 2))
+    side = top * width / height
+    left, right = side * (2 * c0 / width - 1), side * (2 * c1 / width - 1)
+    upper, lower = top * (1 - 2 * r0 / height), top * (1 - 2 * r1 / height)
+    frustum = np.zeros((4, 4))
+    frustum[0, 0], frustum[0, 2] = 2 * near / (right - left), (right + left) / (right - left)
+    frustum[1, 1], frustum[1, 2] = 2 * near / (upper - lower), (upper + lower) / (upper - lower)
+    frustum[2, 2], frustum[2, 3] = (far + near) / (near - far), 2 * far * near / (near - far)
+    frustum[3, 2] = -1.0
+    window = np.asarray(sub_projection(full, (c0, r0, c1, r1), (width, height)))
+    np.testing.assert_allclose(window.reshape(4, 4).T, frustum, rtol=1e-6, atol=1e-9)
+
+
+def _compare(renderer, frames) -> list[float]:
+    """Each frame rendered cropped and full: assert they agree; the windows' shares of the
+    frame."""
+    shares = []
+    total = SIZE[0] * SIZE[1]
+    for i in frames:
+        eye, _ = renderer.pose(i)
+        window = renderer.engine_window(eye)
+        assert window is not None and window[2] > window[0], f"frame {i}: no crop {window}"
+        shares.append((window[2] - window[0]) * (window[3] - window[1]) / total)
+        full = renderer.render(i, crop=False).astype(int)
+        cropped = renderer.render(i, crop=True).astype(int)
+        differs = (full != cropped).any(axis=2)
+        # measured: identical; a pixel may differ in its last bit of shading where the
+        # engine's float32 arithmetic rounds differently for the shifted window
+        assert differs.sum() <= 0.001 * total, f"frame {i}: {differs.sum()} pixels differ"
+        assert np.abs(full - cropped).max() <= 2, f"frame {i}: a pixel differs by more than 2"
+    return shares
+
+
+@pytest.mark.parametrize("camera", ["side", "follow", "three-quarter"])
+def test_cropped_frames_equal_full_frames(run_folder, camera):
+    """Several frames of a recorded run, cropped render against full render (same pixels,
+    up to the tolerance in _compare), with the window well under the frame."""
+    job = render.load_job(run_folder, FPS, SIZE, camera)
+    renderer = render.FrameRenderer(job)
+    try:
+        count = len(job.table)
+        shares = _compare(renderer, sorted({0, 3, count // 2, count - 1}))
+        assert max(shares) < 0.5, f"windows' shares of the frame {shares}"
+    finally:
+        renderer.close()
+
+
+def test_a_step_in_view_is_rendered_too(run_folder):
+    """With a step (a box standing on the floor, drawn by the engine) just ahead of the robot,
+    the window widens to hold it and cropped frames still equal full frames; the step's
+    colour is in the picture."""
+    job = render.load_job(run_folder, FPS, SIZE)
+    plain = render.FrameRenderer(job)
+    stepped = render.FrameRenderer(render.RenderJob(job.robot, {"steps": [[0.12, 0.02, 0.03]]},
+                                                    SIZE, job.table))
+    try:
+        assert len(stepped._static_boxes) == 1, "the step should stay with the engine"
+        widths = []
+        for renderer in (plain, stepped):
+            eye, _ = renderer.pose(0)
+            c0, _, c1, _ = renderer.engine_window(eye)
+            widths.append(c1 - c0)
+        assert widths[1] > widths[0], f"window widths without and with the step {widths}"
+        _compare(stepped, [0, len(job.table) - 1])
+        frame = stepped.render(0)
+        assert len({tuple(p) for p in frame[:, :, :3].reshape(-1, 3)}) > 10
+    finally:
+        plain.close()
+        stepped.close()
+
+
+def test_outside_the_window_is_left_as_the_engine_leaves_empty_pixels(run_folder):
+    """The engine's empty pixel is opaque white at depth EMPTY_DEPTH (measured on a full frame's
+    corner, above the horizon)."""
+    job = render.load_job(run_folder, FPS, SIZE)
+    renderer = render.FrameRenderer(job)
+    try:
+        _, view = renderer.pose(0)
+        _, _, rgba, depth, _ = pb.getCameraImage(*SIZE, view, renderer.projection,
+                                                 renderer=pb.ER_TINY_RENDERER,
+                                                 physicsClientId=renderer.client)
+        assert tuple(np.reshape(rgba, (SIZE[1], SIZE[0], 4))[0, 0]) == (255, 255, 255, 255)
+        assert np.float32(np.reshape(depth, (SIZE[1], SIZE[0]))[0, 0]) == EMPTY_DEPTH
+    finally:
+        renderer.close()
