@@ -130,3 +130,32 @@ def test_outside_the_window_is_left_as_the_engine_leaves_empty_pixels(run_folder
         assert np.float32(np.reshape(depth, (SIZE[1], SIZE[0]))[0, 0]) == EMPTY_DEPTH
     finally:
         renderer.close()
+
+
+def _old_blend(region: np.ndarray, mask: np.ndarray, colour, alpha: float) -> None:
+    """The masked integer blend annotate used before its lookup table, kept for comparison."""
+    weight = int(round(alpha * 256))
+    under = region[mask].astype(np.uint16)
+    over = np.asarray(colour, np.float64).round().astype(np.uint16) * weight
+    region[mask] = ((under * (256 - weight) + over) >> 8).astype(np.uint8)
+
+
+@pytest.mark.parametrize("alpha", [0.25, 0.5, 0.9])
+def test_translucent_fill_gives_the_old_blend_bit_for_bit(alpha):
+    """fill_polygon's table-driven blend writes the bytes of the masked integer blend, on a
+    random picture (every byte value present) and a polygon cut by the frame's edge."""
+    from sandbox.render.annotate import fill_polygon
+
+    rng = np.random.default_rng(5)
+    frame = rng.integers(0, 256, (120, 160, 3), dtype=np.uint8)
+    expected = frame.copy()
+    corners = np.array([[-10.0, 20.3], [90.7, 5.2], [140.1, 99.9], [30.4, 130.0]])
+    colour = (183.4, 92.6, 40.1)
+    fill_polygon(frame, corners, colour, alpha)
+    # the old path: the same window and mask, blended pixel by pixel
+    probe = np.zeros((120, 160, 3), np.uint8)
+    fill_polygon(probe, corners, (255, 255, 255), 1.0)
+    mask = probe[:, :, 0] == 255
+    _old_blend(expected, mask, colour, alpha)
+    assert mask.sum() > 1000
+    np.testing.assert_array_equal(frame, expected)
