@@ -14,8 +14,9 @@ All in this process, on one recorded run (shelf-runner, cascade controller,
     painting the floor, overlay, encoding, joining.
 (c) ``render_run(workers=2)``.
 
-The bare baseline renders the full frame (no window around the robot, as
-render_run's engine pass does): it is what a hand-written replay would do.
+The bare baseline renders the full frame (render_run's engine pass renders
+only a window around the robot and any steps): the full frame is what a
+hand-written replay would do.
 
 Rounds are interleaved and the best of each kind is kept. Targets: (b)/(a) >=
 0.90 and (c)/(b) >= 1.70 in wall-clock frames/s.
