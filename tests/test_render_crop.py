@@ -71,17 +71,24 @@ def _compare(renderer, frames) -> list[float]:
         full = renderer.render(i, crop=False).astype(int)
         cropped = renderer.render(i, crop=True).astype(int)
         differs = (full != cropped).any(axis=2)
-        # measured: identical; a pixel may differ in its last bit of shading where the
-        # engine's float32 arithmetic rounds differently for the shifted window
-        assert differs.sum() <= 0.001 * total, f"frame {i}: {differs.sum()} pixels differ"
-        assert np.abs(full - cropped).max() <= 2, f"frame {i}: a pixel differs by more than 2"
+        # The engine works in float32: for the shifted window its edge tests and shading
+        # round differently now and then. Measured at 640x480 over 46 frames of each
+        # camera: none to one pixel in all, a triangle's edge pixel covered in one and not
+        # the other (up to 110 levels) or a shade off by 1. So: a few pixels at most, each
+        # on an edge of the full frame (a 4-neighbour of another colour).
+        assert differs.sum() <= max(2, 1e-4 * total), f"frame {i}: {differs.sum()} differ"
+        padded = np.pad(full, ((1, 1), (1, 1), (0, 0)), mode="edge")
+        for row, col in np.argwhere(differs):
+            around = padded[[row, row + 2, row + 1, row + 1], [col + 1, col + 1, col, col + 2]]
+            assert (around != full[row, col]).any(axis=1).any(), (
+                f"frame {i}: pixel {row, col} differs off an edge")
     return shares
 
 
 @pytest.mark.parametrize("camera", ["side", "follow", "three-quarter"])
 def test_cropped_frames_equal_full_frames(run_folder, camera):
-    """Several frames of a recorded run, cropped render against full render (same pixels,
-    up to the tolerance in _compare), with the window well under the frame."""
+    """Several frames of a recorded run, cropped render against full render (the same pixels
+    but for the few edge pixels _compare allows), with the window well under the frame."""
     job = render.load_job(run_folder, FPS, SIZE, camera)
     renderer = render.FrameRenderer(job)
     try:
