@@ -14,8 +14,12 @@ All in this process, on one recorded run (shelf-runner, cascade controller,
     painting the floor, overlay, encoding, joining.
 (c) ``render_run(workers=2)``.
 
+The bare baseline renders the full frame (render_run's engine pass renders
+only a window around the robot and any steps): the full frame is what a
+hand-written replay would do.
+
 Rounds are interleaved and the best of each kind is kept. Targets: (b)/(a) >=
-0.8 and (c)/(b) >= 1.6 in wall-clock frames/s.
+0.90 and (c)/(b) >= 1.70 in wall-clock frames/s.
 
 Other programs on the machine distort wall-clock ratios (the encoder and the
 second worker need the second core), so CPU time per frame is printed too,
@@ -130,9 +134,9 @@ def main() -> None:
     print(f"  render_run, 1 worker                   {rate['one']:7.1f} frames/s")
     print(f"  render_run, 2 workers                  {rate['two']:7.1f} frames/s")
     print(f"  1 worker / bare                        {rate['one'] / rate['bare']:7.2f}"
-          "   (target >= 0.80)")
+          "   (target >= 0.90)")
     print(f"  2 workers / 1 worker                   {rate['two'] / rate['one']:7.2f}"
-          "   (target >= 1.60)")
+          "   (target >= 1.70)")
     print(f"  1 worker / bare with engine's floor    {rate['one'] / rate['engine']:7.2f}")
     print("CPU time per frame")
     print(f"  bare getCameraImage                    {ms['bare']:7.2f} ms")

@@ -111,11 +111,17 @@ def _paint(frame: np.ndarray, where, mask: np.ndarray, colour, alpha: float) -> 
     if alpha >= 1.0:
         region[mask] = colour
         return
-    # integer blend in 1/256ths: a third of the cost of a float one
+    # integer blend in 1/256ths, (under · (256 - weight) + colour · weight) >> 8, looked up
+    # per channel in a 256-entry table over the window and copied where the mask is set:
+    # the same bytes as blending the masked pixels, at about half the cost
     weight = int(round(alpha * 256))
-    under = region[mask].astype(np.uint16)
     over = np.asarray(colour, np.float64).round().astype(np.uint16) * weight
-    region[mask] = ((under * (256 - weight) + over) >> 8).astype(np.uint8)
+    table = ((np.arange(256, dtype=np.uint16)[None, :] * (256 - weight) + over[:, None]) >> 8
+             ).astype(np.uint8)
+    blended = np.empty(region.shape, np.uint8)
+    for k in range(region.shape[2]):
+        np.take(table[k], region[:, :, k], out=blended[:, :, k])
+    np.copyto(region, blended, where=mask[:, :, None])
 
 
 def draw_arrow(frame: np.ndarray, tail, head, width: float, colour) -> None:

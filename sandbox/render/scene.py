@@ -10,6 +10,7 @@ import numpy as np
 from ..ground import ground_from_record
 from ..robot import robot_from_dict
 from ..world import World, pb, quiet
+from .annotate import project
 from .frames import RenderJob
 from .overlay import OverlayLayout, draw_overlay
 
@@ -20,6 +21,9 @@ CHECKER_PER_HEIGHT = 0.45  # floor checker square / robot height, rounded to 1-2
 CHECKER_CONTRAST = 0.12  # dark squares are this much darker
 FLOOR_FADE_SQUARES = 30  # the checker fades out over this many squares' distance
 BACKGROUND_DEPTH = 0.99999  # tiny renderer depth of empty pixels (it clears to just under 1)
+EMPTY_DEPTH = np.float32(0.9999999)  # what the tiny renderer leaves in pixels it drew nothing in
+CROP_PAD_PX = 3  # the engine's window reaches this far past the projected bounding boxes
+CROP_LIMIT = 0.6  # a window covering more of the frame than this renders the full frame
 GRAZING = 1e-3  # rays that drop less than this per unit length count as missing the floor
 # --camera: (azimuth from world +x towards +y, elevation) in degrees; the robot starts
 # heading +x, so side looks at its right flank with forward to the picture's right
@@ -289,6 +293,43 @@ class FrameRenderer:
                              rgbaColor=[*(c / 255 for c in self.frame_colour), 0.0],
                              physicsClientId=self.client)
         self.state = None
+        # what the engine still draws besides the robot (steps): their world corners, once
+        self._static_boxes = [_box_corners(pb.getAABB(body, physicsClientId=self.client))
+                              for body in getattr(self.world, "floor_ids", [])
+                              if pb.getVisualShapeData(body, physicsClientId=self.client)[0][7][3]
+                              > 0]
+        self._links = range(-1, pb.getNumJoints(self.world.robot_id, physicsClientId=self.client))
+        self.near = distance / 40.0
+        self._depth = np.empty((height, width), np.float32)
+
+    def engine_window(self, eye) -> tuple[int, int, int, int] | None:
+        """The frame's columns c0:c1 and rows r0:r1 that can hold what the engine draws at the
+        current pose (the robot and any steps), or None when that is most of the frame.
+
+        Bounds of the projected world bounding boxes (``pb.getAABB``, clipped to the
+        space in front of the eye), padded by CROP_PAD_PX; an empty window is
+        (0, 0, 0, 0).
+        """
+        c, robot = self.client, self.world.robot_id
+        boxes = [_box_corners(pb.getAABB(robot, link, physicsClientId=c)) for link in self._links]
+        width, height = self.job.size
+        low, high = np.array([np.inf, np.inf]), np.array([-np.inf, -np.inf])
+        for corners in boxes + self._static_boxes:
+            points = _in_front(corners, eye, self.camera, 2.0 * self.near)
+            if points is None:
+                continue
+            pixels, _ = project(points, eye, self.camera, (width, height))
+            low, high = np.minimum(low, pixels.min(axis=0)), np.maximum(high, pixels.max(axis=0))
+        if not np.isfinite(low).all():
+            return 0, 0, 0, 0
+        c0, r0 = (max(0, int(math.floor(v - CROP_PAD_PX))) for v in low)
+        c1 = min(width, int(math.ceil(high[0] + CROP_PAD_PX)) + 1)
+        r1 = min(height, int(math.ceil(high[1] + CROP_PAD_PX)) + 1)
+        if c0 >= c1 or r0 >= r1:
+            return 0, 0, 0, 0
+        if (c1 - c0) * (r1 - r0) > CROP_LIMIT * width * height:
+            return None
+        return c0, r0, c1, r1
 
     def _take_floor_pieces(self, rotation: np.ndarray, shade: float) -> list[FloorPiece]:
         """The world's floor as FloorPieces for the painter, hidden from the engine's renderer.
@@ -393,8 +434,14 @@ class FrameRenderer:
             draw_label(rgb, f"push {push.direction}", tip - np.array([0.0, 6.0 * s]),
                        max(1, s - 1), PUSH_COLOUR)
 
-    def render(self, i: int, out: np.ndarray | None = None) -> np.ndarray:
+    def render(self, i: int, out: np.ndarray | None = None, crop: bool = True) -> np.ndarray:
         """Frame ``i`` with its floor and overlay: (height, width, 4) uint8 RGBA.
+
+        The engine renders only :meth:`engine_window` (``crop``) through an
+        off-axis projection, so each of its pixels is that pixel of the full
+        frame; the rest is left empty as the engine would leave it. The tiny
+        renderer's cost grows with the pixels it covers and most of a frame is
+        painted floor. ``crop=False`` renders the full frame (for comparison).
 
         With ``out`` the frame is drawn there and the engine's arrays are let go
         at once: holding them for the encoder makes the allocator hand memory
@@ -402,20 +449,88 @@ class FrameRenderer:
         """
         eye, view = self.pose(i)
         width, height = self.job.size
-        _, _, rgba, depth, _ = pb.getCameraImage(
-            width, height, view, self.projection, renderer=pb.ER_TINY_RENDERER,
-            flags=pb.ER_NO_SEGMENTATION_MASK, physicsClientId=self.client)
-        rgba = np.reshape(rgba, (height, width, 4))
-        if out is not None:
-            np.copyto(out, rgba)
-            rgba = out
-        self.floor.paint(rgba, np.reshape(depth, (height, width)), eye)
+        window = self.engine_window(eye) if crop else None
+        if window is None:
+            _, _, rgba, depth, _ = pb.getCameraImage(
+                width, height, view, self.projection, renderer=pb.ER_TINY_RENDERER,
+                flags=pb.ER_NO_SEGMENTATION_MASK, physicsClientId=self.client)
+            rgba = np.reshape(rgba, (height, width, 4))
+            if out is not None:
+                np.copyto(out, rgba)
+                rgba = out
+            depth = np.reshape(depth, (height, width))
+        else:
+            rgba = np.empty((height, width, 4), np.uint8) if out is None else out
+            rgba.view(np.uint32).fill(0xFFFFFFFF)  # the tiny renderer's empty pixel: white
+            depth = self._depth
+            depth.fill(EMPTY_DEPTH)
+            c0, r0, c1, r1 = window
+            if c1 > c0:
+                projection = sub_projection(self.projection, window, (width, height))
+                _, _, part, part_depth, _ = pb.getCameraImage(
+                    c1 - c0, r1 - r0, view, projection,
+                    renderer=pb.ER_TINY_RENDERER, flags=pb.ER_NO_SEGMENTATION_MASK,
+                    physicsClientId=self.client)
+                rgba[r0:r1, c0:c1] = np.reshape(part, (r1 - r0, c1 - c0, 4))
+                depth[r0:r1, c0:c1] = np.reshape(part_depth, (r1 - r0, c1 - c0))
+        self.floor.paint(rgba, depth, eye)
         self.annotate(rgba[:, :, :3], i, eye)
         draw_overlay(rgba[:, :, :3], self.layout, self.job.table, i)
         return rgba
 
     def close(self) -> None:
         self.world.close()
+
+
+def sub_projection(projection, window: tuple[int, int, int, int], size: tuple[int, int]
+                   ) -> list[float]:
+    """The projection matrix (OpenGL column-major 16 values) of columns c0:c1 and rows r0:r1
+    of a ``size`` (width, height px) frame seen through ``projection``.
+
+    An off-axis frustum [glFrustum, OpenGL 2.1 reference pages]: the window's
+    normalised device coordinates are the frame's, shifted by the window's
+    middle (mx, my) and scaled by its half size (sx, sy), which changes only the
+    first two rows: x' = (x - mx w) / sx with w = -z for a perspective matrix.
+    For the whole frame the values are ``projection``'s own.
+    """
+    c0, r0, c1, r1 = window
+    width, height = size
+    sx, sy = (c1 - c0) / width, (r1 - r0) / height
+    mx, my = (c0 + c1) / width - 1.0, 1.0 - (r0 + r1) / height
+    matrix = list(projection)
+    if (sx, sy, mx, my) == (1.0, 1.0, 0.0, 0.0):
+        return matrix
+    for column in range(4):
+        w = matrix[4 * column + 3]
+        matrix[4 * column] = (matrix[4 * column] - mx * w) / sx
+        matrix[4 * column + 1] = (matrix[4 * column + 1] - my * w) / sy
+    return matrix
+
+
+def _box_corners(aabb) -> np.ndarray:
+    """The 8 corners (m) of an axis-aligned box given as (low, high)."""
+    (x0, y0, z0), (x1, y1, z1) = aabb
+    return np.array([[x, y, z] for x in (x0, x1) for y in (y0, y1) for z in (z0, z1)])
+
+
+_BOX_EDGES = [(a, b) for a in range(8) for b in range(a + 1, 8) if bin(a ^ b).count("1") == 1]
+
+
+def _in_front(corners: np.ndarray, eye, camera: Camera, near: float) -> np.ndarray | None:
+    """A box's points at least ``near`` (m) ahead of the eye whose convex hull is the box
+    clipped there: its corners in front and its edges' crossings; None if all behind."""
+    depth = (corners - np.asarray(eye)) @ camera.forward
+    ahead = depth >= near
+    if ahead.all():
+        return corners
+    if not ahead.any():
+        return None
+    points = [corners[ahead]]
+    for a, b in _BOX_EDGES:
+        if ahead[a] != ahead[b]:
+            share = (near - depth[a]) / (depth[b] - depth[a])
+            points.append((corners[a] + share * (corners[b] - corners[a]))[None, :])
+    return np.concatenate(points)
 
 
 def _floor_shade(tilt, camera: Camera, distance: float) -> float:
