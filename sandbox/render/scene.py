@@ -354,10 +354,8 @@ class FrameRenderer:
                     continue  # not level with the floor (a step): the engine draws it
                 low, high = centre - extents / 2, centre + extents / 2
             else:
-                box = np.array(pb.getAABB(body, physicsClientId=c))
-                corners = np.array([[box[i, 0], box[j, 1], box[k, 2]]
-                                    for i in (0, 1) for j in (0, 1) for k in (0, 1)])
-                floor = corners @ rotation  # rows: corners in floor coordinates
+                # rows: the corners in floor coordinates
+                floor = _box_corners(pb.getAABB(body, physicsClientId=c)) @ rotation
                 low, high = floor.min(axis=0), floor.max(axis=0)
             pieces.append(FloorPiece((low[0], high[0]), (low[1], high[1]),
                                      tuple(255.0 * shade * v for v in rgba[:3])))
