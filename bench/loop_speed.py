@@ -88,10 +88,10 @@ def record_actuation(spec, seconds: float, folder: Path) -> tuple[list[tuple], f
             contacts[0] += len(pb.getContactPoints(world.robot_id, physicsClientId=world.client))
         return done
 
-    def advance(self, count, drive):
+    def advance(self, count, drive, take_step=None):
         pending["recording"] = True  # from the first step of the run, not the settling
         pending["world"] = self
-        return original[3](self, count, drive)
+        return original[3](self, count, drive, take_step)
 
     pb.setJointMotorControlArray, pb.applyExternalTorque, pb.stepSimulation = (
         set_torques, body_torque, step)

@@ -462,6 +462,9 @@ class _Loop:
         reached = samples.reached
         step = self.step
         stops = samples.plan(step, target, world)  # ascending, within (step, target)
+        take_step = samples.take_step  # read by the world at each step, or None
+        if take_step is not None:
+            advance = partial(advance, take_step=take_step)
         stop_index, stop_count = 0, len(stops)
         while step < target:
             if self.pending is not None and step >= self.pending[0]:

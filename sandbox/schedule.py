@@ -184,6 +184,14 @@ class ImuSamples:
         self.due: set[int] | frozenset = frozenset()
         self.before: dict[int, Any] = {}  # mount velocities one step before a due sample
         self.last_fed = -1  # (with a filter) step of the last sample fed to it
+        # A filtered IMU sampled at every physics step of an uncoupled world (the demo
+        # robots: their gearbox play leaves no rotor cross term) is read by the world's
+        # own step loop through take_step (set by plan, None otherwise): the schedule
+        # then has no stops, and each step costs one call instead of a stop.
+        self.each_step = self.filtering and self.every_step and not coupled
+        self.take_step: Any = None
+        self._read = None  # the world's imu_sample, bound
+        self._mount_velocity = None  # the mount point's velocity at the last sample
 
     # ------------------------------------------------------------- at a tick
     def seen(self, step: int, first: bool, tick_truth: tuple) -> tuple[tuple, int]:
@@ -230,6 +238,14 @@ class ImuSamples:
                        for p in (n - 1, n) if step < p < target})
 
     def _plan_every_sample(self, step: int, target: int, world: Any) -> list[int]:
+        if self.each_step and hasattr(world, "imu_sample"):
+            self.due, self.before = frozenset(), {}
+            self._read = world.imu_sample
+            self._step = step
+            if target > step:
+                self._mount_velocity = world.body_state().point_velocity(self.mount)
+            self.take_step = self._take_step
+            return []
         dt, rate = self.dt, self.rate
         first = math.floor(step * dt * rate + 1e-9) + 1
         last = math.floor(target * dt * rate + 1e-9)
@@ -241,6 +257,15 @@ class ImuSamples:
         if step + 1 in due:
             self.before[step + 1] = world.body_state().point_velocity(self.mount)
         return sorted({p for n in due for p in (n - 1, n) if step < p < target})
+
+    def _take_step(self) -> None:
+        """The world has just made one physics step: read the sample there and feed it to
+        the sensor's filter (the same numbers as :meth:`reached` and :meth:`end_period`)."""
+        step = self._step = self._step + 1
+        truth, self._mount_velocity = self._read(self.mount, self._mount_velocity,
+                                                 self.gravity, self.dt)
+        self.last_fed = step
+        self.truths = {step: self.imu.feed(*truth)}
 
     def reached(self, step: int, target: int, world: Any) -> None:
         """The world has stopped at ``step`` on its way to ``target``: read what is due."""

@@ -49,8 +49,8 @@ class WatchedWorld(World):
     def _follow(self) -> None:
         look_at(self.client, self.robot_id, self._distance)
 
-    def advance(self, steps: int, drive: Any) -> None:
-        super().advance(steps, drive)
+    def advance(self, steps: int, drive: Any, take_step: Any = None) -> None:
+        super().advance(steps, drive, take_step)
         self._simulated += steps * self.dt
         self._follow()
         wait = self._start + self._simulated * self.slow_motion - time.perf_counter()

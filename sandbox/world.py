@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import os
 import tempfile
+from collections.abc import Callable
 from contextlib import contextmanager
 
 import numpy as np
@@ -426,21 +427,22 @@ class World:
         with the rotor coupling and any push as in :meth:`advance`."""
         self.advance(1, _HeldTorques(torque_left, torque_right))
 
-    def advance(self, steps: int, drive) -> None:
+    def advance(self, steps: int, drive, take_step: Callable[[], None] | None = None) -> None:
         """Run ``steps`` physics steps with the motors in the loop.
 
         Each step: read the wheel rates relative to the body, let ``drive`` (an
         :class:`sandbox.actuators.DriveTrain`) turn them into wheel torques,
-        apply them, step. The hot loop of every run, so names are bound locally
+        apply them, step, then call ``take_step`` (if given: an IMU sample read
+        at every step). The hot loop of every run, so names are bound locally
         and the rotor coupling is written out here rather than called. The
         first step uses the reads of the present instant if the controller
         tick already made them.
         """
         if self._push is not None:
-            self._advance_pushed(steps, drive)
+            self._advance_pushed(steps, drive, take_step)
             return
         if self._gearbox is not None:
-            self._advance_geared(steps, drive)
+            self._advance_geared(steps, drive, take_step)
             return
         (robot, joints, client, dt, inv_dt, j, (pitch_gain, wheels_gain), read, read_body,
          push_body, apply, step, torque_mode, world_frame) = self._hot_names
@@ -492,6 +494,9 @@ class World:
             apply(robot, joints, torque_mode, forces=(torque_left, torque_right),
                   physicsClientId=client)
             step(physicsClientId=client)
+            if take_step is not None:
+                self._velocity_now = None
+                take_step()
         self._last_rates = last
 
     def _make_gearbox(self) -> Backlash:
@@ -524,7 +529,7 @@ class World:
             return left, right
         return self._gearbox.motor_angle[0], self._gearbox.motor_angle[1]
 
-    def _advance_geared(self, steps: int, drive) -> None:
+    def _advance_geared(self, steps: int, drive, take_step: Callable[[], None] | None) -> None:
         """As :meth:`advance`, with backlash: the motors drive their motor sides (their
         back-EMF sees the motor side's rate) and the wheels get the dead-zone contact's
         torque. The joint torque's reaction on the body is the stator's torque plus the
@@ -546,6 +551,9 @@ class World:
             contact = contacts(torques, (left[0], right[0]), (left[1], right[1]))
             apply(robot, joints, torque_mode, forces=contact, physicsClientId=client)
             step(physicsClientId=client)
+            if take_step is not None:
+                self._velocity_now = None  # the sample reads (and keeps) the body anew
+                take_step()
 
     def _gravity_torque(self) -> float:
         """Gravity's torque on the body about the axle axis now (N·m, + leaning forward)."""
@@ -558,7 +566,7 @@ class World:
         ax, ay, _ = r[1], r[4], r[7]
         return self.spec.figures.body.mass * self.gravity * (cx * ay - cy * ax)
 
-    def _advance_pushed(self, steps: int, drive) -> None:
+    def _advance_pushed(self, steps: int, drive, take_step: Callable[[], None] | None) -> None:
         """Step one at a time while a push lasts (the force is re-applied every step)."""
         for _ in range(steps):
             if self._push is not None:
@@ -569,7 +577,7 @@ class World:
                                       physicsClientId=self.client)
                 self._push = [left - 1, force, point] if left > 1 else None
             pushed, self._push = self._push, None
-            self.advance(1, drive)
+            self.advance(1, drive, take_step)
             self._push = pushed
 
     # ------------------------------------------------------------- true state

@@ -80,6 +80,16 @@ PINS = {
     "tall-mast-no-rotor-latency": "9c4f4cfbe48f873861eb019c2bd136c6209a6b33421a48eeae1c407cd6277a8a",  # noqa: E501
 }
 
+# The same case on another machine kind. glibc picks its sin, cos, exp... at start-up by
+# what the processor offers (with or without FMA), and the variants can differ in the
+# last bit; the engine's integration carries such a bit on. Two kinds seen here give
+# these two desk-mite cases different bytes and every other case the same (checked on
+# the second kind with GLIBC_TUNABLES=glibc.cpu.hwcaps=-AVX2,-FMA, which moved them
+# again). A change of upright's own moves every hash of a case, so either may match.
+OTHER_MACHINE_PINS = {
+    "desk-mite": "b6739f54a8f91771b60d4fc5b6f2ce5074066c20d0f326c0e3097e077621a625",
+    "desk-mite-sensor-fault": "32eac38d7a164fe6a089e84dde27138f4edd713ca0251011bbba78aaedbeca16",  # noqa: E501
+}
 
 
 def pinned_trace_hash(folder: Path) -> str:
@@ -109,7 +119,8 @@ def run_case(name: str, folder: Path) -> str:
 @pytest.mark.parametrize("name", sorted(CASES))
 def test_trace_bytes_are_pinned(name: str, tmp_path: Path) -> None:
     """Robot files without the new keys give the same trace bytes as before the rebuild."""
-    assert run_case(name, tmp_path) == PINS[name], f"trace of {name} changed"
+    accepted = {PINS[name], OTHER_MACHINE_PINS.get(name, PINS[name])}
+    assert run_case(name, tmp_path) in accepted, f"trace of {name} changed"
 
 
 if __name__ == "__main__":  # print the pins (only when taking them anew, on purpose)
