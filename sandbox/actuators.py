@@ -327,23 +327,49 @@ class DriveTrain:
         supply = self._terminal_voltage - self._voltage_drop
         if supply < 0.0:
             supply = 0.0
-        torques, currents = [], []
-        for duty, rate, motor, band in zip((self._duty_left, self._duty_right),
-                                           (rate_left, rate_right),
-                                           (self.motor_left, self.motor_right), self._side_bands):
-            if duty == 0.0 and not self._brake_when_off:
-                current = rest_current = 0.0
-            else:
-                current = (duty * supply - motor.back_emf_constant * rate) / motor.resistance
-                rest_current = duty * supply / motor.resistance
-            drive = motor.torque_constant * current
-            torques.append(drive + karnopp_friction(
-                drive, motor.torque_constant * rest_current, rate, motor.friction_torque,
-                motor.breakaway_torque, band))
-            currents.append(current)
-        self._current_left, self._current_right = currents
-        self._draw(self._duty_left * currents[0] + self._duty_right * currents[1], dt)
-        out = self.last_torques = (torques[0], torques[1])
+        duty_left, duty_right = self._duty_left, self._duty_right
+        left, right = self.motor_left, self.motor_right
+        band_left, band_right = self._side_bands
+        brake = self._brake_when_off
+        # both sides written out (this runs every physics step); a side moving past its
+        # band takes kinetic friction without the call, the same floats as the call's
+        if duty_left == 0.0 and not brake:
+            current_left = rest_left = 0.0
+        else:
+            current_left = ((duty_left * supply - left.back_emf_constant * rate_left)
+                            / left.resistance)
+            rest_left = None
+        drive = left.torque_constant * current_left
+        if rate_left > band_left:
+            torque_left = drive - left.friction_torque
+        elif rate_left < -band_left:
+            torque_left = drive + left.friction_torque
+        else:
+            if rest_left is None:
+                rest_left = duty_left * supply / left.resistance
+            torque_left = drive + karnopp_friction(
+                drive, left.torque_constant * rest_left, rate_left, left.friction_torque,
+                left.breakaway_torque, band_left)
+        if duty_right == 0.0 and not brake:
+            current_right = rest_right = 0.0
+        else:
+            current_right = ((duty_right * supply - right.back_emf_constant * rate_right)
+                             / right.resistance)
+            rest_right = None
+        drive = right.torque_constant * current_right
+        if rate_right > band_right:
+            torque_right = drive - right.friction_torque
+        elif rate_right < -band_right:
+            torque_right = drive + right.friction_torque
+        else:
+            if rest_right is None:
+                rest_right = duty_right * supply / right.resistance
+            torque_right = drive + karnopp_friction(
+                drive, right.torque_constant * rest_right, rate_right, right.friction_torque,
+                right.breakaway_torque, band_right)
+        self._current_left, self._current_right = current_left, current_right
+        self._draw(duty_left * current_left + duty_right * current_right, dt)
+        out = self.last_torques = (torque_left, torque_right)
         return out
 
     # ----------------------------------------------------------------- internals

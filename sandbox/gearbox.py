@@ -136,6 +136,10 @@ class Backlash:
         self.dt = float(dt)
         self._h = self.dt / design.substeps
         self._half_gap = 0.5 * design.play
+        # what _step_side needs, bound once (it runs twice a physics step)
+        self._constants = (design.wheel_mobility, 1.0 / design.motor_inertia, self._half_gap,
+                           design.stiffness, design.damping, self._h, 0.5 * self._h,
+                           range(design.substeps), design.substeps, self.dt)
         self.motor_angle = [0.0, 0.0]  # rad, relative to the body, at the output shaft
         self.motor_rate = [0.0, 0.0]
         self._wheel_rate = [0.0, 0.0]  # at the start of the last step
@@ -167,27 +171,23 @@ class Backlash:
         """Advance both motor sides one physics step; (left, right) torque on the wheels."""
         if not self._started:
             self.start(wheel_angles, wheel_rates)
-        out = [0.0, 0.0]
-        for side in (0, 1):
-            out[side] = self._step_side(side, motor_torques[side], wheel_angles[side],
-                                        wheel_rates[side])
-        return out[0], out[1]
+        side_step = self._step_side
+        return (side_step(0, motor_torques[0], wheel_angles[0], wheel_rates[0]),
+                side_step(1, motor_torques[1], wheel_angles[1], wheel_rates[1]))
 
     def _step_side(self, side: int, motor_torque: float, wheel_angle: float,
                    wheel_rate: float) -> float:
-        design = self.design
-        mobility = design.wheel_mobility
+        (mobility, inverse_inertia, half_gap, k, c, h, half_h, substeps, count,
+         dt) = self._constants
         # the engine's wheel acceleration over the last step, less the contact's share
-        measured = (wheel_rate - self._wheel_rate[side]) / self.dt
-        self._wheel_acceleration[side] = measured - mobility * self._torque[side]
+        measured = (wheel_rate - self._wheel_rate[side]) / dt
+        free_acceleration = self._wheel_acceleration[side] = (measured
+                                                              - mobility * self._torque[side])
         self._wheel_rate[side] = wheel_rate
-        inverse_inertia = 1.0 / design.motor_inertia
-        half_gap, k, c, h = self._half_gap, design.stiffness, design.damping, self._h
-        free_acceleration = self._wheel_acceleration[side]
         motor, motor_rate = self.motor_angle[side], self.motor_rate[side]
         wheel = wheel_angle
         total = 0.0
-        for _ in range(design.substeps):
+        for _ in substeps:
             # contact_torque written out (8 calls a physics step otherwise); same floats
             play = motor - wheel
             if play > half_gap:
@@ -203,11 +203,11 @@ class Backlash:
             motor_acc = (motor_torque - torque) * inverse_inertia
             wheel_acc = free_acceleration + mobility * torque
             # constant acceleration over the sub-step (exact in free flight)
-            motor += h * (motor_rate + 0.5 * h * motor_acc)
+            motor += h * (motor_rate + half_h * motor_acc)
             motor_rate += h * motor_acc
-            wheel += h * (wheel_rate + 0.5 * h * wheel_acc)
+            wheel += h * (wheel_rate + half_h * wheel_acc)
             wheel_rate += h * wheel_acc
             total += torque
         self.motor_angle[side], self.motor_rate[side] = motor, motor_rate
-        self._torque[side] = total / design.substeps
-        return self._torque[side]
+        mean = self._torque[side] = total / count
+        return mean

@@ -176,9 +176,24 @@ class LowPass:
             return (_first_order(b, a, x[0], self._state[0]),
                     _first_order(b, a, x[1], self._state[1]),
                     _first_order(b, a, x[2], self._state[2]))
-        return (_second_order(b, a, x[0], self._state[0]),
-                _second_order(b, a, x[1], self._state[1]),
-                _second_order(b, a, x[2], self._state[2]))
+        # second order: y = b0·x + s0; s0 = b1·x − a1·y + s1; s1 = b2·x − a2·y, each axis
+        # written out (no call per axis)
+        b0, b1, b2 = b
+        a1, a2 = a[1], a[2]
+        sx, sy, sz = self._state
+        value = x[0]
+        out_x = b0 * value + sx[0]
+        sx[0] = b1 * value - a1 * out_x + sx[1]
+        sx[1] = b2 * value - a2 * out_x
+        value = x[1]
+        out_y = b0 * value + sy[0]
+        sy[0] = b1 * value - a1 * out_y + sy[1]
+        sy[1] = b2 * value - a2 * out_y
+        value = x[2]
+        out_z = b0 * value + sz[0]
+        sz[0] = b1 * value - a1 * out_z + sz[1]
+        sz[1] = b2 * value - a2 * out_z
+        return out_x, out_y, out_z
 
 
 def _times(m: tuple[float, ...], v: Vector3) -> Vector3:
@@ -191,13 +206,6 @@ def _times(m: tuple[float, ...], v: Vector3) -> Vector3:
 def _first_order(b: tuple, a: tuple, value: float, state: list[float]) -> float:
     y = b[0] * value + state[0]
     state[0] = b[1] * value - a[1] * y
-    return y
-
-
-def _second_order(b: tuple, a: tuple, value: float, state: list[float]) -> float:
-    y = b[0] * value + state[0]
-    state[0] = b[1] * value - a[1] * y + state[1]
-    state[1] = b[2] * value - a[2] * y
     return y
 
 
