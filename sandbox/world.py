@@ -216,6 +216,7 @@ class World:
         # controller tick and the first physics step after it share them.
         self._joints_now: tuple | None = None
         self._velocity_now: tuple | None = None
+        self._pose_kept: tuple = (None, None)  # (the velocity read, _pose_now's answer)
         self._clear_tilt = self._tilt_before_touching()
         # what advance() binds to local names on every call (once per controller tick)
         self._hot_names = (self.robot_id, self.wheel_joints, self.client, self.dt, 1.0 / self.dt,
@@ -596,8 +597,13 @@ class World:
         rotation of the body frame (row-major), axle centre), world frame; the velocity is
         kept for the instant. The axle as :meth:`body_state` computes it, to the bit."""
         c = self.client
-        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
         velocity_now = self._velocity_now
+        kept = self._pose_kept
+        if velocity_now is not None and kept[0] is velocity_now:
+            # the same instant as the last call (the velocity read is kept until the
+            # state changes): a tick reads the pose two or three times
+            return kept[1]
+        com, quat = pb.getBasePositionAndOrientation(self.robot_id, physicsClientId=c)
         if velocity_now is None:
             velocity_now = self._velocity_now = pb.getBaseVelocity(self.robot_id,
                                                                    physicsClientId=c)
@@ -609,7 +615,9 @@ class World:
         axle = (com[0] - (r[0] * lx + r[1] * ly + r[2] * lz),
                 com[1] - (r[3] * lx + r[4] * ly + r[5] * lz),
                 com[2] - (r[6] * lx + r[7] * ly + r[8] * lz))
-        return com, quat, velocity_now[0], velocity_now[1], r, axle
+        pose = com, quat, velocity_now[0], velocity_now[1], r, axle
+        self._pose_kept = (velocity_now, pose)
+        return pose
 
     def imu_sample(self, mount: Vector, before: Vector | None, gravity: Vector,
                    dt: float) -> tuple[tuple[Vector, Vector], Vector]:
