@@ -56,6 +56,38 @@ def test_honest_trace_bytes_are_pinned(name: str, tmp_path: Path) -> None:
     assert run_case(name, tmp_path) == PINS[name], f"trace of {name} changed"
 
 
+@pytest.mark.parametrize("name", ["desk-mite", "desk-mite-push"])
+def test_sampling_in_the_step_loop_is_taken_and_changes_no_byte(name: str, tmp_path: Path,
+                                                                monkeypatch) -> None:
+    """The demo robots' filtered 1 kHz IMU is read by the world's step loop
+    (``ImuSamples.take_step``); with that path turned off the schedule stops at every
+    step instead, and the trace is the same to the byte."""
+    from sandbox.schedule import ImuSamples
+
+    plan = ImuSamples._plan_every_sample
+    taken = []
+
+    def counting(self, step, target, world):
+        stops = plan(self, step, target, world)
+        taken.append(self.take_step is not None)
+        return stops
+
+    monkeypatch.setattr(ImuSamples, "_plan_every_sample", counting)
+    fused = run_case(name, tmp_path / "fused")
+    assert taken and all(taken), "the demo robot's IMU was not read in the step loop"
+    original_init = ImuSamples.__init__
+
+    def without_fusion(self, *args, **kwargs):
+        original_init(self, *args, **kwargs)
+        self.each_step = False
+
+    monkeypatch.setattr(ImuSamples, "__init__", without_fusion)
+    taken.clear()
+    stopping = run_case(name, tmp_path / "stopping")
+    assert taken and not any(taken)
+    assert fused == stopping == PINS[name]
+
+
 if __name__ == "__main__":  # print the pins (only when taking them anew, on purpose)
     import tempfile
 

@@ -214,3 +214,22 @@ def test_imu_sample_in_one_pass_equals_the_separate_reads():
             before = velocity
     finally:
         world.close()
+
+
+def test_pose_read_once_an_instant_follows_every_change_of_state():
+    """The body's pose is kept with the velocity read of the instant: a second read at the
+    same instant gives the same answer, and a step or a placing (set_state) is seen."""
+    world = World(ideal_robot("desk-mite"), tilt=0.05)
+    try:
+        first = world.body_state()
+        assert world.body_state().com == first.com
+        world.step(0.01, 0.01)
+        stepped = world.body_state()
+        assert stepped.com != first.com
+        moved = (stepped.com[0] + 0.25, stepped.com[1], stepped.com[2])
+        world.set_state(moved, stepped.com_orientation, (0.1, 0.0, 0.0))
+        placed = world.body_state()
+        assert placed.com == pytest.approx(moved, abs=1e-12)
+        assert placed.velocity == pytest.approx((0.1, 0.0, 0.0), abs=1e-12)
+    finally:
+        world.close()
