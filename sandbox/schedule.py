@@ -240,10 +240,12 @@ class ImuSamples:
     def _plan_every_sample(self, step: int, target: int, world: Any) -> list[int]:
         if self.each_step and hasattr(world, "imu_sample"):
             self.due, self.before = frozenset(), {}
+            # the mount's velocity now: the last sample's, when it was taken at this step
+            # (nothing at a tick moves the body), else read
+            if target > step and not (self.take_step is not None and self._step == step):
+                self._mount_velocity = world.body_state().point_velocity(self.mount)
             self._read = world.imu_sample
             self._step = step
-            if target > step:
-                self._mount_velocity = world.body_state().point_velocity(self.mount)
             self.take_step = self._take_step
             return []
         dt, rate = self.dt, self.rate
