@@ -172,15 +172,24 @@ class LowPass:
         b, a = self.b, self.a
         # written out per axis (transposed direct form II, as scipy.signal.lfilter): this
         # runs once a sample, often every physics step
+        sx, sy, sz = self._state
         if self.order == 1:
-            return (_first_order(b, a, x[0], self._state[0]),
-                    _first_order(b, a, x[1], self._state[1]),
-                    _first_order(b, a, x[2], self._state[2]))
+            # first order: y = b0·x + s0; s0 = b1·x − a1·y, each axis written out
+            b0, b1, a1 = b[0], b[1], a[1]
+            value = x[0]
+            out_x = b0 * value + sx[0]
+            sx[0] = b1 * value - a1 * out_x
+            value = x[1]
+            out_y = b0 * value + sy[0]
+            sy[0] = b1 * value - a1 * out_y
+            value = x[2]
+            out_z = b0 * value + sz[0]
+            sz[0] = b1 * value - a1 * out_z
+            return out_x, out_y, out_z
         # second order: y = b0·x + s0; s0 = b1·x − a1·y + s1; s1 = b2·x − a2·y, each axis
         # written out (no call per axis)
         b0, b1, b2 = b
         a1, a2 = a[1], a[2]
-        sx, sy, sz = self._state
         value = x[0]
         out_x = b0 * value + sx[0]
         sx[0] = b1 * value - a1 * out_x + sx[1]
@@ -201,12 +210,6 @@ def _times(m: tuple[float, ...], v: Vector3) -> Vector3:
     x, y, z = float(v[0]), float(v[1]), float(v[2])
     return (m[0] * x + m[1] * y + m[2] * z, m[3] * x + m[4] * y + m[5] * z,
             m[6] * x + m[7] * y + m[8] * z)
-
-
-def _first_order(b: tuple, a: tuple, value: float, state: list[float]) -> float:
-    y = b[0] * value + state[0]
-    state[0] = b[1] * value - a[1] * y
-    return y
 
 
 class Imu:
