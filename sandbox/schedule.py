@@ -192,6 +192,7 @@ class ImuSamples:
         self.take_step: Any = None
         self._read = None  # the world's imu_sample, bound
         self._mount_velocity = None  # the mount point's velocity at the last sample
+        self._step = -1  # the step of the last sample take_step read
 
     # ------------------------------------------------------------- at a tick
     def seen(self, step: int, first: bool, tick_truth: tuple) -> tuple[tuple, int]:
