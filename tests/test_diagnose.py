@@ -235,6 +235,31 @@ def test_failed_test_names_the_disturbance_it_followed(shelf):
     assert next(f for f in early if f["code"] == "disturbance")["figures"]["t_s"] is None
 
 
+def test_an_event_that_comes_during_the_fall_is_not_blamed_for_it(shelf):
+    """A long shove from 6.00 s tips the robot (past 5 deg from 6.07 s, the fall's onset);
+    a small push at 6.17 s lands on a robot already falling: the shove is named, the push
+    listed as coming during the fall. Without an event before the onset, the last one
+    before the fall is named as before."""
+    n = 1240
+    t = np.arange(n) * DT
+    pitch = np.where(t > 6.0, 0.5 * (np.exp(8.0 * (t - 6.0)) - 1.0), 0.0)
+    marks = [[2.0, "push 0.05 N*s"], [6.0, "push 2 N for 0.2 s"], [6.17, "push 0.05 N*s"]]
+    verdict = {"passed": False, "checks": [], "disturbance_times_s": [2.0, 6.0, 6.17]}
+    found = diagnose(synthetic(n, pitch_rad=pitch), {"status": "fell", "fell_at_s": 6.18},
+                     shelf, marks=marks, test_result=verdict)
+    event = next(f for f in found if f["code"] == "disturbance")
+    onset = float(t[np.nonzero(np.abs(pitch) < math.radians(5.0))[0][-1]])
+    assert event["figures"]["t_s"] == 6.0 and event["figures"]["onset_s"] == onset
+    assert event["figures"]["during_fall"] == [{"t_s": 6.17, "label": "push 0.05 N*s"}]
+    assert "already falling" in event["text"] and "6.17 s" in event["text"]
+    # the same fall with no event before its onset: the last event before the fall
+    late = [[6.17, "push 0.05 N*s"]]
+    event = next(f for f in diagnose(synthetic(n, pitch_rad=pitch),
+                                     {"status": "fell", "fell_at_s": 6.18}, shelf, marks=late,
+                                     test_result=verdict) if f["code"] == "disturbance")
+    assert event["figures"]["t_s"] == 6.17 and event["figures"]["during_fall"] == []
+
+
 def test_only_falls_and_failed_tests_are_diagnosed():
     assert needs_diagnosis("fell", None)
     assert needs_diagnosis("completed", {"passed": False})

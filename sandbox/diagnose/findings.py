@@ -341,22 +341,50 @@ def _worst_recovery(trace, test_result) -> float:
     return when
 
 
-def _disturbance(marks, failed_at: float, fell: bool, settled: bool = True) -> dict:
-    """Which event of the test the failure followed (time, kind, size)."""
+def fall_onset(t: np.ndarray, pitch: np.ndarray, fell_at: float) -> float | None:
+    """When the fall began (s): the last sample up to ``fell_at`` with the tilt within
+    FALL_ONSET_TILT of its usual level (the median tilt until then: a robot holding a
+    slope leans into it); None if it never was."""
+    upto = np.nonzero(t <= fell_at + 1e-9)[0]
+    if upto.size == 0:
+        return None
+    held = pitch[upto]
+    usual = float(np.median(held))
+    calm = np.nonzero(np.abs(held - usual) < FALL_ONSET_TILT)[0]
+    return float(t[upto[calm[-1]]]) if calm.size else None
+
+
+def _disturbance(marks, failed_at: float, fell: bool, settled: bool = True,
+                 onset: float | None = None, tick: float = 0.0) -> dict:
+    """Which event of the test the failure followed (time, kind, size).
+
+    For a fall with its ``onset`` known, the last event at or before the onset (within a
+    tick, ``tick`` s): an event that came once the robot was already falling is named
+    as such, not blamed."""
     before = [(float(m[0]), str(m[1])) for m in marks if float(m[0]) <= failed_at + 1e-9]
     what = "fell" if fell else "failed"
     if not before:
         return finding("disturbance", f"{what} at {failed_at:.2f} s before any event of the "
                        "test: the robot cannot do it undisturbed; fix that first", 1.0,
                        t_s=None, kind=None, size=None, failed_at_s=failed_at)
+    during: list[tuple[float, str]] = []
+    if fell and onset is not None:
+        leading = [m for m in before if m[0] <= onset + tick + 1e-9]
+        if leading:
+            during = before[len(leading):]
+            before = leading
     when, label = before[-1]
     kind, _, size = label.partition(" ")
     if kind in ("gyro", "accel", "encoder"):
         kind, size = " ".join(label.split()[:2]), " ".join(label.split()[2:])
     text = (f"{what} {failed_at - when:.2f} s after the {label} at {when:.2f} s" if settled
             else f"the tilt never settled back after the {label} at {when:.2f} s")
+    if during:
+        text += (" (already falling from " + f"{onset:.2f} s when "
+                 + ", ".join(f"the {lbl} at {at:.2f} s" for at, lbl in during) + " came)")
     return finding("disturbance", text, 0.8, t_s=when, kind=kind, size=size or None,
-                   failed_at_s=failed_at, label=label)
+                   failed_at_s=failed_at, label=label, onset_s=onset,
+                   during_fall=[{"t_s": at, "label": lbl} for at, lbl in during])
 
 
 def diagnose(trace: dict[str, np.ndarray], summary: dict, spec, *, marks=(),
@@ -382,7 +410,10 @@ def diagnose(trace: dict[str, np.ndarray], summary: dict, spec, *, marks=(),
     marks = list(marks or (summary.get("marks") or []))
     if failed or (marks and status == "fell"):
         failed_at, settled = _failure_time(trace, summary, test_result)
-        event = _disturbance(marks, failed_at, status == "fell", settled)
+        onset = (fall_onset(t, trace["pitch_rad"], failed_at) if status == "fell"
+                 else None)
+        event = _disturbance(marks, failed_at, status == "fell", settled, onset,
+                             1.0 / rate_hz)
         found.append(event)
         if event["figures"]["t_s"] is not None:
             start = event["figures"]["t_s"]
