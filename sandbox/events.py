@@ -563,7 +563,8 @@ def load_test_file(path: Path) -> TestPlan:
     """Read and validate a test file; raises TestFileError naming the key and the problem."""
     source = str(path)
     if not path.is_file():
-        raise TestFileError(source, ["no such file"])
+        raise TestFileError(source, ["no such file (check the path, or use a built-in test: "
+                                     f"{', '.join(BUILTIN_NAMES)})"])
     try:
         data = read_yaml_file(path, source)
     except YamlFileError as err:

@@ -105,7 +105,8 @@ def load_robot(path: str | Path, overrides: dict[str, Any] | None = None) -> Rob
     path = Path(path)
     source = str(path)
     if not path.is_file():
-        raise RobotFileError(source, ["no such file"])
+        raise RobotFileError(source, ["no such file (check the path from where you run "
+                                      "upright; the README's tour shows a robot file)"])
     try:
         data = read_yaml_file(path, source)
     except YamlFileError as err:

@@ -55,7 +55,8 @@ def load_controller_class(spec: str | os.PathLike) -> type:
     """
     path, class_name = _split_spec(spec)
     if not path.is_file():
-        raise ControllerLoadError(f"{path}: no such controller file")
+        raise ControllerLoadError(f"{path}: no such controller file (check the path: a Python "
+                                 "file with a class Controller, as in controllers/)")
     if path.suffix != ".py":
         raise ControllerLoadError(f"{path}: a controller must be a Python file ending in .py")
     try:

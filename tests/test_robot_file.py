@@ -357,7 +357,7 @@ def test_missing_file(tmp_path):
     path = tmp_path / "nowhere.yaml"
     with pytest.raises(RobotFileError) as info:
         load_robot(path)
-    assert info.value.problems == ["no such file"]
+    assert info.value.problems[0].startswith("no such file (check the path")
     assert str(path) in str(info.value)
 
 
