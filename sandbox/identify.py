@@ -8,9 +8,10 @@ side by side. ``check_suggested`` runs the example controllers with the suggeste
 configs and reports whether the robot stays up.
 
 Identification conditions (what the linear model assumes, so like is compared with like):
-motor Coulomb friction 0 and rolling resistance 0 (the linear model has no Coulomb
-friction), PWM at 16 bits with no deadband (no quantisation), a driven bridge (duty is
-never exactly 0, so ``off_state`` never acts). The battery is left as described; each
+motor Coulomb friction 0, no breakaway friction, no gearbox play and rolling resistance 0
+(the linear model has no Coulomb friction or dead zone), PWM at 16 bits with no
+deadband (no quantisation), a driven bridge (duty is never exactly 0, so ``off_state``
+never acts). The battery is left as described; each
 step's duty is rescaled to the nominal drive voltage by the terminal voltage the bridge
 sees in that step, since B is defined at the nominal voltage.
 """
@@ -78,6 +79,12 @@ class Excitation:
 def identification_spec(spec: RobotSpec) -> RobotSpec:
     """The robot with the effects the linear model leaves out turned off (see module doc)."""
     data = spec.to_si_dict()
+    # the gearbox's play and the motors' breakaway friction: dead zones a small
+    # perturbation lives inside, which no linear model holds (on either side)
+    for motor in (data["motors"], data["motors"].get("left") or {},
+                  data["motors"].get("right") or {}):
+        for key in ("backlash", "static_friction_torque", "friction_torque"):
+            motor.pop(key, None)
     data["motors"]["friction_torque"] = 0.0
     data["wheels"]["rolling_resistance"] = 0.0
     data["driver"].update(pwm_bits=16, deadband=0.0, off_state="brake")
