@@ -124,7 +124,9 @@ def _imperfection_rows(spec) -> list[tuple[str, str, str]]:
     errors, jitter, compute time; the per-side rows are above), or 'ideal parts'."""
     from ..facts import imperfections
 
-    rows = [tuple(r) for r in imperfections(spec)
+    # the report typesets N·m; the other rows of this table write N m
+    rows = [(r[0], r[1], r[2].replace("N·m", "N m"))
+            for r in imperfections(spec)
             if not r[0].startswith(("motors.left", "motors.right", "wheels.left", "wheels.right"))]
     return [("parts", "ideal parts (no imperfections in the file)", "")] if not (
         rows or spec.figures.sides_differ) else rows
