@@ -166,6 +166,11 @@ def test_demo_logs_fit_the_secret_robot():
     assert np.max(np.abs(after - truth)) / scale < 0.03
     assert np.max(np.abs(before - truth)) / scale > 0.03
     assert abs(rows["motors.backlash"].fitted - math.radians(2.0)) < math.radians(0.2)
+    # a play-check log was given: no note asks for one; without it, one note (not one a side)
+    assert not any("--play" in note for note in result.notes)
+    no_play = fit_robot(ROOT / "robots" / "shelf-runner.yaml",
+                        spin=BENCH / "shelf-runner-spin.csv", mass=make_logs.secret_mass())
+    assert sum("--play" in note for note in no_play.notes) == 1
 
 
 def test_fitted_file_loads_where_the_keys_exist(tmp_path):

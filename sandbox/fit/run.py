@@ -97,6 +97,10 @@ def fit_robot(robot: Path, *, swing: Path | None = None, spin: Path | None = Non
                     side.breakaway_duty.low <= side.deadband.high):
                 result.notes.append(f"spin ({side.side}): the wheel breaks away at the deadband,"
                                     " so static friction is at most the torque there")
+        if "play" not in logs:
+            result.notes.append("spin: with encoders on the motor shaft a free wheel follows "
+                                "the motor at once, so free spinning cannot show the gearbox "
+                                "play: give a play-check log (--play) to fit it")
         src = f"spin ({names['spin']})"
         file_values = {"no_load_speed": motors.no_load_speed,
                        "friction_torque": motors.friction_torque,

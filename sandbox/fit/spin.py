@@ -170,8 +170,6 @@ def fit_side(t: np.ndarray, ticks: np.ndarray, duty: np.ndarray, supply: np.ndar
         breakaway = Estimate(mean, mean - half, mean + half)
     else:
         notes.append("breakaway: no slow ramp from rest in the log")
-    notes.append("play: with encoders on the motor shaft a free wheel follows the motor at "
-                 "once, so free spinning cannot show the play: give a play-check log (--play)")
     curves = {"t": t, "speed": speed, "line": line_speed(applied, supply), "duty": duty}
     return SideFit(side, k_v, w_f, tau, deadband, breakaway, backlash, tuple(notes), curves)
 
