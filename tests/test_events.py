@@ -30,9 +30,7 @@ from sandbox.events import (
     GroundSpec,
     Timeline,
     builtin_tests,
-    judge,
     load_test_file,
-    recovery_after,
     resolve_test,
 )
 
@@ -43,6 +41,7 @@ from sandbox.imu import Encoders, Imu
 from sandbox.robot import load_robot
 from sandbox.runner import RunSettings
 from sandbox.session import run_once
+from sandbox.verdicts import judge, recovery_after
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = Path(__file__).resolve().parent / "tests_data"
