@@ -25,7 +25,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .analysis import PlanarParams, mass_matrix, wheel_relative_angle
+from .planar import PlanarParams, mass_matrix, wheel_relative_angle
 
 
 @dataclass(frozen=True)

@@ -15,7 +15,6 @@ from contextlib import contextmanager
 
 import numpy as np
 
-from .analysis import PlanarParams
 from .bodystate import BodyState, Vector, _add, _cross, _matmul, _point_velocity
 from .gearbox import Backlash, ContactDesign, CouplingGains
 from .ground import (
@@ -32,6 +31,7 @@ from .ground import (
     rough_heights,
 )
 from .inertia import cylinder_inertia_y
+from .planar import PlanarParams
 from .robot import RobotSpec
 from .urdf import WHEEL_JOINTS, robot_urdf, wheel_of
 
