@@ -7,7 +7,8 @@ same numpy operations in the same order so that the coefficients are the very fl
 scipy gives (checked bit for bit against scipy by tests/test_butterworth.py); importing
 scipy.signal costs about 0.65 s, more than all the rest of a run's start. Reference:
 Oppenheim & Schafer, Discrete-Time Signal Processing (3rd ed., 2010), 7.1.2 (bilinear
-transformation) and 7.2 (Butterworth) [published].
+transformation) and 7.2 (Butterworth) [published]. :class:`LowPass` runs such a
+filter on three axes, one sample per call: the IMU's own filter (sandbox.imu).
 """
 
 from __future__ import annotations
@@ -15,6 +16,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
+
+Vector3 = tuple[float, float, float]
 
 
 def butter_lowpass(order: int, cutoff: float, rate: float) -> tuple[np.ndarray, np.ndarray]:
@@ -77,3 +80,68 @@ def steady_state(b: np.ndarray, a: np.ndarray) -> np.ndarray:
     companion[np.arange(1, n - 1), np.arange(0, n - 2)] = 1
     i_minus_a = np.asarray(np.eye(n - 1) - companion.T, dtype=np.result_type(a, b))
     return np.linalg.solve(i_minus_a, b[1:] - a[1:] * b[0])
+
+
+class LowPass:
+    """A Butterworth low-pass on three axes, one sample per call (direct form II transposed).
+
+    ``order`` 1 or 2, ``cutoff`` (Hz) below ``rate`` / 2 (Hz, the sample rate). The first
+    sample sets the state to that of a long steady input: a sensor is powered before a run.
+    """
+
+    def __init__(self, order: int, cutoff: float, rate: float):
+        if order not in (1, 2):
+            raise ValueError(f"filter order must be 1 or 2, got {order!r}")
+        if not (math.isfinite(cutoff) and 0 < cutoff < rate / 2):
+            raise ValueError(f"filter cut-off must be between 0 and {rate / 2:g} Hz "
+                             f"(half the sample rate), got {cutoff!r}")
+        b, a = butter_lowpass(order, cutoff, rate)  # scipy's butter's floats
+        self.order, self.cutoff, self.rate = order, float(cutoff), float(rate)
+        self.b = tuple(float(v) for v in b)
+        self.a = tuple(float(v) for v in a)  # a[0] == 1
+        self._unit_state = tuple(float(v) for v in steady_state(b, a))
+        self._state: list[list[float]] | None = None
+
+    def reset(self, steady: Vector3 | None = None) -> None:
+        """Forget the past; with ``steady``, start as after a long constant input of it."""
+        self._state = (None if steady is None else
+                       [[z * float(x) for z in self._unit_state] for x in steady])
+
+    def __call__(self, x: Vector3) -> Vector3:
+        """The filter's output (three floats) for the next sample ``x``."""
+        if self._state is None:
+            self.reset(x)
+        b, a = self.b, self.a
+        # written out per axis (transposed direct form II, as scipy.signal.lfilter): this
+        # runs once a sample, often every physics step
+        sx, sy, sz = self._state
+        if self.order == 1:
+            # first order: y = b0·x + s0; s0 = b1·x − a1·y, each axis written out
+            b0, b1, a1 = b[0], b[1], a[1]
+            value = x[0]
+            out_x = b0 * value + sx[0]
+            sx[0] = b1 * value - a1 * out_x
+            value = x[1]
+            out_y = b0 * value + sy[0]
+            sy[0] = b1 * value - a1 * out_y
+            value = x[2]
+            out_z = b0 * value + sz[0]
+            sz[0] = b1 * value - a1 * out_z
+            return out_x, out_y, out_z
+        # second order: y = b0·x + s0; s0 = b1·x − a1·y + s1; s1 = b2·x − a2·y, each axis
+        # written out (no call per axis)
+        b0, b1, b2 = b
+        a1, a2 = a[1], a[2]
+        value = x[0]
+        out_x = b0 * value + sx[0]
+        sx[0] = b1 * value - a1 * out_x + sx[1]
+        sx[1] = b2 * value - a2 * out_x
+        value = x[1]
+        out_y = b0 * value + sy[0]
+        sy[0] = b1 * value - a1 * out_y + sy[1]
+        sy[1] = b2 * value - a2 * out_y
+        value = x[2]
+        out_z = b0 * value + sz[0]
+        sz[0] = b1 * value - a1 * out_z + sz[1]
+        sz[1] = b2 * value - a2 * out_z
+        return out_x, out_y, out_z

@@ -50,6 +50,8 @@ from typing import Any
 
 import numpy as np
 
+from .butterworth import LowPass
+
 Vector3 = tuple[float, float, float]
 
 # Random numbers are drawn a block of rows at a time, one row per read; blocks start small
@@ -136,73 +138,6 @@ def mount_rotation(roll: float, pitch: float, yaw: float) -> np.ndarray:
     ry = np.array([[cp, 0.0, sp], [0.0, 1.0, 0.0], [-sp, 0.0, cp]])
     rz = np.array([[cy, -sy, 0.0], [sy, cy, 0.0], [0.0, 0.0, 1.0]])
     return rz @ ry @ rx
-
-
-class LowPass:
-    """A Butterworth low-pass on three axes, one sample per call (direct form II transposed).
-
-    ``order`` 1 or 2, ``cutoff`` (Hz) below ``rate`` / 2 (Hz, the sample rate). The first
-    sample sets the state to that of a long steady input: a sensor is powered before a run.
-    """
-
-    def __init__(self, order: int, cutoff: float, rate: float):
-        from .butterworth import butter_lowpass, steady_state
-
-        if order not in (1, 2):
-            raise ValueError(f"filter order must be 1 or 2, got {order!r}")
-        if not (math.isfinite(cutoff) and 0 < cutoff < rate / 2):
-            raise ValueError(f"filter cut-off must be between 0 and {rate / 2:g} Hz "
-                             f"(half the sample rate), got {cutoff!r}")
-        b, a = butter_lowpass(order, cutoff, rate)  # scipy's butter's floats
-        self.order, self.cutoff, self.rate = order, float(cutoff), float(rate)
-        self.b = tuple(float(v) for v in b)
-        self.a = tuple(float(v) for v in a)  # a[0] == 1
-        self._unit_state = tuple(float(v) for v in steady_state(b, a))
-        self._state: list[list[float]] | None = None
-
-    def reset(self, steady: Vector3 | None = None) -> None:
-        """Forget the past; with ``steady``, start as after a long constant input of it."""
-        self._state = (None if steady is None else
-                       [[z * float(x) for z in self._unit_state] for x in steady])
-
-    def __call__(self, x: Vector3) -> Vector3:
-        """The filter's output (three floats) for the next sample ``x``."""
-        if self._state is None:
-            self.reset(x)
-        b, a = self.b, self.a
-        # written out per axis (transposed direct form II, as scipy.signal.lfilter): this
-        # runs once a sample, often every physics step
-        sx, sy, sz = self._state
-        if self.order == 1:
-            # first order: y = b0·x + s0; s0 = b1·x − a1·y, each axis written out
-            b0, b1, a1 = b[0], b[1], a[1]
-            value = x[0]
-            out_x = b0 * value + sx[0]
-            sx[0] = b1 * value - a1 * out_x
-            value = x[1]
-            out_y = b0 * value + sy[0]
-            sy[0] = b1 * value - a1 * out_y
-            value = x[2]
-            out_z = b0 * value + sz[0]
-            sz[0] = b1 * value - a1 * out_z
-            return out_x, out_y, out_z
-        # second order: y = b0·x + s0; s0 = b1·x − a1·y + s1; s1 = b2·x − a2·y, each axis
-        # written out (no call per axis)
-        b0, b1, b2 = b
-        a1, a2 = a[1], a[2]
-        value = x[0]
-        out_x = b0 * value + sx[0]
-        sx[0] = b1 * value - a1 * out_x + sx[1]
-        sx[1] = b2 * value - a2 * out_x
-        value = x[1]
-        out_y = b0 * value + sy[0]
-        sy[0] = b1 * value - a1 * out_y + sy[1]
-        sy[1] = b2 * value - a2 * out_y
-        value = x[2]
-        out_z = b0 * value + sz[0]
-        sz[0] = b1 * value - a1 * out_z + sz[1]
-        sz[1] = b2 * value - a2 * out_z
-        return out_x, out_y, out_z
 
 
 def _times(m: tuple[float, ...], v: Vector3) -> Vector3:
@@ -536,53 +471,3 @@ def specific_force(
 def tilt_from_accel(accel: Vector3 | np.ndarray) -> float:
     """Pitch (rad, + top forward) from a specific-force reading at rest: atan2(−a_x, a_z)."""
     return math.atan2(-float(accel[0]), float(accel[2]))
-
-
-def allan_deviation(
-    rate: np.ndarray, sample_rate: float, taus: Any, overlapping: bool = True
-) -> np.ndarray:
-    """Allan deviation of rate samples (unit of ``rate``) at each averaging time in ``taus`` (s).
-
-    The samples are integrated to an angle θ_k = τ₀·Σ_{i<k} rate_i (θ_0 = 0,
-    τ₀ = 1/sample_rate), then :func:`allan_deviation_from_phase` applies.
-    Fractional-frequency data y with τ₀ = 1 s is the case ``sample_rate = 1``.
-    """
-    if not (math.isfinite(sample_rate) and sample_rate > 0):
-        raise ValueError(f"sample_rate must be > 0 Hz, got {sample_rate!r}")
-    samples = np.asarray(rate, dtype=float)
-    if samples.ndim != 1:
-        raise ValueError(f"rate must be one-dimensional, got shape {samples.shape}")
-    period = 1.0 / sample_rate
-    angle = np.concatenate(([0.0], np.cumsum(samples))) * period
-    return allan_deviation_from_phase(angle, period, taus, overlapping)
-
-
-def allan_deviation_from_phase(
-    phase: np.ndarray, sample_period: float, taus: Any, overlapping: bool = True
-) -> np.ndarray:
-    """Allan deviation from integrated samples θ_0..θ_{N−1} spaced ``sample_period`` (s).
-
-    σ²(τ) = Σ (θ_{k+2m} − 2θ_{k+m} + θ_k)² / (2 τ² · count), τ = m·τ₀, with m
-    the nearest whole number of sample periods. Overlapping: every k from 0
-    to N−2m−1 (count = N − 2m); otherwise k steps by m. Raises ValueError for
-    a τ shorter than one period or longer than half the record.
-    """
-    theta = np.asarray(phase, dtype=float)
-    tau_array = np.atleast_1d(np.asarray(taus, dtype=float))
-    result = np.empty(tau_array.shape)
-    for index, tau in enumerate(tau_array):
-        m = int(round(tau / sample_period))
-        if m < 1 or 2 * m > theta.size - 1:
-            raise ValueError(
-                f"tau {tau:g} s needs 1 to {(theta.size - 1) // 2} sample periods of "
-                f"{sample_period:g} s; the record has {theta.size} points"
-            )
-        step = 1 if overlapping else m
-        ahead, middle, behind = theta[2 * m :: step], theta[m:-m:step], theta[: -2 * m : step]
-        second_difference = ahead - 2.0 * middle + behind
-        span = m * sample_period
-        result[index] = math.sqrt(
-            float(np.dot(second_difference, second_difference))
-            / (2.0 * span * span * second_difference.size)
-        )
-    return result

@@ -9,12 +9,11 @@ import pytest
 from scipy import stats
 
 from sandbox import robot
+from sandbox.allan import allan_deviation, allan_deviation_from_phase
 from sandbox.imu import (
     AxisNoise,
     Encoders,
     Imu,
-    allan_deviation,
-    allan_deviation_from_phase,
     specific_force,
     tilt_from_accel,
 )
