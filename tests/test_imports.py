@@ -131,3 +131,15 @@ def test_a_run_with_plots_loads_matplotlib_but_no_scipy_signal(tmp_path):
     assert (tmp_path / "run" / "plots.png").is_file()
     assert "matplotlib" in loaded
     assert not loaded & {"scipy.signal", "scipy.linalg", "pint", "dask"}
+
+
+def test_only_the_world_package_imports_the_engine():
+    """Layout rule (DESIGN.md): pybullet is imported in sandbox/world/ alone; rendering and
+    the window reach it through ``sandbox.world.pb``."""
+    import re
+
+    importing = sorted(
+        str(path.relative_to(ROOT)) for path in (ROOT / "sandbox").rglob("*.py")
+        if re.search(r"^\s*(import pybullet|from pybullet)", path.read_text(encoding="utf-8"),
+                     re.M))
+    assert importing == ["sandbox/world/engine.py"]
