@@ -20,6 +20,7 @@ from contextlib import contextmanager
 
 _signals_seen = 0  # SIGINTs taken by our handler, not yet matched to a KeyboardInterrupt
 _installed = False
+_ignored = False  # SIGINT ignored when we looked (nohup, a background job): no Ctrl-C comes
 
 
 def _on_sigint(signum, frame) -> None:
@@ -30,10 +31,11 @@ def _on_sigint(signum, frame) -> None:
 
 def install() -> bool:
     """Count Ctrl-Cs from now on (main thread, default handler only). True when counting."""
-    global _installed
+    global _installed, _ignored
     if threading.current_thread() is not threading.main_thread():
         return _installed
     current = signal.getsignal(signal.SIGINT)
+    _ignored = current is signal.SIG_IGN
     if current is signal.default_int_handler:
         signal.signal(signal.SIGINT, _on_sigint)
         _installed = True
@@ -47,10 +49,13 @@ def install() -> bool:
 def is_user_interrupt(err: BaseException) -> bool:
     """Whether ``err`` is a Ctrl-C from the user (a signal), not one a controller raised.
 
-    Without our handler in place every KeyboardInterrupt counts as the user's.
+    Without our handler in place every KeyboardInterrupt counts as the user's, unless
+    SIGINT was ignored (started with nohup or as a background job): then none is.
     """
     global _signals_seen
     if not isinstance(err, KeyboardInterrupt):
+        return False
+    if _ignored and signal.getsignal(signal.SIGINT) is signal.SIG_IGN:
         return False
     if not _installed or signal.getsignal(signal.SIGINT) is not _on_sigint:
         return True

@@ -145,6 +145,25 @@ def test_every_way_a_controller_ends_is_a_controller_error(case: str, isolate: b
     assert len(_rows(out)) >= 20  # the ticks before 0.1 s at 200 Hz
 
 
+def test_a_raised_keyboard_interrupt_is_the_controllers_with_ctrl_c_ignored(
+        tmp_path: Path) -> None:
+    """Started with SIGINT ignored (nohup, a background job of a script), no Ctrl-C can
+    reach upright: a KeyboardInterrupt the script raises is its error (exit 3), not the
+    user's (it was reported as an interruption, exit 130)."""
+    import signal
+
+    body, fragment = ENDINGS["keyboard-interrupt-raised"]
+    script = _script(tmp_path, "raises_interrupt", body)
+    out = tmp_path / "run"
+    done = subprocess.run(
+        [sys.executable, "-m", "sandbox.cli", "run", ROBOT, str(script), "--duration", "0.5",
+         "--out", str(out), "--no-plots"], cwd=ROOT, capture_output=True, text=True,
+        timeout=120, env={**os.environ, "PYTHONPATH": str(ROOT)},
+        preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_IGN))
+    assert done.returncode == 3, (done.stdout, done.stderr)
+    assert fragment in done.stdout + done.stderr
+
+
 def test_unseeded_random_in_a_controller_is_still_reproducible(tmp_path: Path) -> None:
     """Python's `random` and numpy's global generator are seeded from the run's seed
     before the script is built: the same seed gives the same trace bytes."""
